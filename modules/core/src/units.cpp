@@ -1,0 +1,78 @@
+#include "wavestack/core/units.hpp"
+
+#include "wavestack/core/error.hpp"
+
+#include <cctype>
+#include <charconv>
+#include <cmath>
+#include <cstdio>
+
+namespace wavestack {
+namespace {
+
+std::string_view trim(std::string_view s) {
+  while (!s.empty() && std::isspace(static_cast<unsigned char>(s.front()))) s.remove_prefix(1);
+  while (!s.empty() && std::isspace(static_cast<unsigned char>(s.back()))) s.remove_suffix(1);
+  return s;
+}
+
+struct Unit {
+  std::string_view name;
+  double scale;
+};
+// "µ" is U+00B5 (micro sign), "μ" is U+03BC (Greek mu); both appear in practice.
+constexpr Unit units[] = {{"pm", 1e-12}, {"nm", 1e-9},      {"um", 1e-6}, {"\xC2\xB5m", 1e-6},
+                          {"\xCE\xBCm", 1e-6}, {"mm", 1e-3}, {"cm", 1e-2}, {"m", 1.0}};
+
+} // namespace
+
+std::optional<double> try_parse_length(std::string_view text, std::string* why) {
+  auto set = [&](std::string m) {
+    if (why) *why = std::move(m);
+    return std::nullopt;
+  };
+  std::string_view s = trim(text);
+  if (s.empty()) return set("expected a length with a unit such as \"12.5 um\", saw an empty string");
+  // Number part: std::from_chars for doubles (g++ 12 has it).
+  const char* begin = s.data();
+  const char* end = s.data() + s.size();
+  if (*begin == '+') ++begin;
+  double value = 0.0;
+  auto [ptr, ec] = std::from_chars(begin, end, value);
+  if (ec != std::errc() || ptr == begin)
+    return set("expected a length with a unit such as \"12.5 um\", saw \"" + std::string(s) + "\"");
+  std::string_view unit = trim(std::string_view(ptr, static_cast<std::size_t>(end - ptr)));
+  if (unit.empty())
+    return set("expected a length with a unit such as \"" + std::string(s) + " um\", saw the bare number \"" +
+               std::string(s) + "\"");
+  for (const Unit& u : units) {
+    if (unit == u.name) {
+      if (!std::isfinite(value)) return set("length \"" + std::string(s) + "\" is not finite");
+      return value * u.scale;
+    }
+  }
+  return set("unknown length unit \"" + std::string(unit) + "\" in \"" + std::string(s) +
+             "\"; use one of pm, nm, um (or µm), mm, cm, m");
+}
+
+double parse_length(std::string_view text) {
+  std::string why;
+  auto v = try_parse_length(text, &why);
+  if (!v) fail_config(why);
+  return *v;
+}
+
+std::string format_length(double metres) {
+  const double a = std::fabs(metres);
+  const char* unit = "m";
+  double scale = 1.0;
+  if (a == 0.0) { unit = "um"; scale = 1e-6; }
+  else if (a < 1e-6) { unit = "nm"; scale = 1e-9; }
+  else if (a < 1e-3) { unit = "um"; scale = 1e-6; }
+  else if (a < 1.0) { unit = "mm"; scale = 1e-3; }
+  char buf[64];
+  std::snprintf(buf, sizeof buf, "%.6g %s", metres / scale, unit);
+  return buf;
+}
+
+} // namespace wavestack

@@ -1,0 +1,108 @@
+#pragma once
+// Thread-safe FFTW (single precision) plan cache.
+//
+// Conventions (FFTW manual, "What FFTW Really Computes"):
+//  * forward transform uses exp(-2πi jk/n), backward exp(+2πi jk/n);
+//  * transforms are UNNORMALISED: forward then backward multiplies by h*w;
+//  * bin k holds frequency k/(n·d) for k < n/2 ... negative frequencies in the
+//    upper half (same layout as numpy.fft.fftfreq);
+//  * r2c output has h rows of w/2+1 complex values (the non-negative
+//    column frequencies); the rest follows from Hermitian symmetry.
+//
+// Only this module calls the FFTW planner, under one mutex. Plans are always
+// made on scratch buffers (never on live data) and executed with the
+// new-array interface, which is safe to call concurrently from many threads
+// on different arrays. Arrays passed to execute must be 64-byte aligned
+// (wavestack::Image guarantees it) and must not overlap unless the plan was
+// made in-place.
+#include "wavestack/core/image.hpp"
+
+#include <cstddef>
+#include <memory>
+#include <string>
+
+namespace wavestack::fft {
+
+enum class Direction { forward, backward };
+
+/// How hard the planner works. `estimate` is fast and the plan is a pure
+/// function of the sizes, so results are bit-reproducible across runs;
+/// `measure` times candidate algorithms (faster execution, but the chosen
+/// algorithm may differ between runs unless a wisdom file is used).
+enum class Planning { estimate, measure, patient };
+
+/// A 2-D complex-to-complex plan, out-of-place or in-place.
+class C2C {
+public:
+  virtual ~C2C() = default;
+  std::size_t height() const noexcept { return h_; }
+  std::size_t width() const noexcept { return w_; }
+  Direction direction() const noexcept { return dir_; }
+  bool in_place() const noexcept { return in_place_; }
+  /// Execute on `in` → `out` (both h*w contiguous, 64-byte aligned). For an
+  /// in-place plan pass the same pointer twice.
+  virtual void execute(const cfloat* in, cfloat* out) const = 0;
+
+protected:
+  C2C(std::size_t h, std::size_t w, Direction d, bool ip) : h_(h), w_(w), dir_(d), in_place_(ip) {}
+  std::size_t h_, w_;
+  Direction dir_;
+  bool in_place_;
+};
+
+/// A 2-D real-to-complex forward plan (out-of-place): h*w floats → h*(w/2+1) complex.
+class R2C {
+public:
+  virtual ~R2C() = default;
+  std::size_t height() const noexcept { return h_; }
+  std::size_t width() const noexcept { return w_; }
+  std::size_t spectrum_width() const noexcept { return w_ / 2 + 1; }
+  /// Note: FFTW's r2c does not modify `in` for out-of-place 2-D plans only
+  /// when FFTW_PRESERVE_INPUT is honoured; this wrapper guarantees `in` is
+  /// left unchanged.
+  virtual void execute(const float* in, cfloat* out) const = 0;
+
+protected:
+  R2C(std::size_t h, std::size_t w) : h_(h), w_(w) {}
+  std::size_t h_, w_;
+};
+
+/// Get (or make, once) a plan. Thread-safe; planning is serialised. The
+/// returned plan stays valid for the life of the process.
+std::shared_ptr<const C2C> plan_c2c(std::size_t h, std::size_t w, Direction dir, bool in_place = false);
+std::shared_ptr<const R2C> plan_r2c(std::size_t h, std::size_t w);
+
+/// Planner effort for plans made from now on (default: estimate).
+void set_planning(Planning p);
+Planning planning();
+
+/// Load / save FFTW wisdom (the planner's saved choices). load returns false
+/// when the file does not exist; throws Error on a corrupt file.
+bool load_wisdom(const std::string& path);
+void save_wisdom(const std::string& path);
+
+/// Number of plans currently cached (for tests).
+std::size_t cached_plans();
+
+/// Smallest n' >= n whose prime factors are all in {2, 3, 5, 7}: sizes
+/// FFTW transforms fastest.
+std::size_t good_size(std::size_t n);
+/// Smallest even good size >= n (crops that must have a centre pixel).
+std::size_t good_even_size(std::size_t n);
+
+/// Signed frequency index of FFT bin k for length n: k for k < (n+1)/2, else k - n.
+inline long signed_bin(std::size_t k, std::size_t n) noexcept {
+  return k < (n + 1) / 2 ? static_cast<long>(k) : static_cast<long>(k) - static_cast<long>(n);
+}
+/// FFT bin of signed frequency index f for length n (inverse of signed_bin).
+inline std::size_t bin_of(long f, std::size_t n) noexcept {
+  const long m = static_cast<long>(n);
+  return static_cast<std::size_t>(((f % m) + m) % m);
+}
+
+/// Move the zero frequency to the centre (numpy.fft.fftshift), out-of-place.
+void fftshift(ImageView<const cfloat> in, ImageView<cfloat> out);
+/// Inverse of fftshift (numpy.fft.ifftshift), out-of-place.
+void ifftshift(ImageView<const cfloat> in, ImageView<cfloat> out);
+
+} // namespace wavestack::fft
