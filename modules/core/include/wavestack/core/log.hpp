@@ -1,0 +1,25 @@
+#pragma once
+// Minimal thread-safe log to stderr. Warnings are never silent: each one is
+// also kept so the program can write them into the output file's attributes.
+#include <string>
+#include <vector>
+
+namespace wavestack::log {
+
+enum class Level { debug = 0, info = 1, warning = 2, error = 3, quiet = 4 };
+
+/// Messages below `level` are not printed (warnings are still recorded).
+void set_level(Level level);
+Level level();
+
+void info(const std::string& message);
+void debug(const std::string& message);
+/// Print "warning: <message>" and record it. A warning with the same `once_key`
+/// (when non-empty) is printed and recorded only the first time.
+void warn(const std::string& message, const std::string& once_key = {});
+
+/// Every warning recorded so far, in order.
+std::vector<std::string> warnings();
+void clear_warnings();
+
+} // namespace wavestack::log
