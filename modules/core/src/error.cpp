@@ -11,22 +11,22 @@ std::string Error::format(const std::string& message, const ErrorContext& ctx) {
   // the remaining context in parentheses.
   std::string out;
   if (!ctx.file.empty()) {
-    out += ctx.file;
+    out.append(ctx.file);
     if (ctx.line > 0) {
-      out += ":" + std::to_string(ctx.line);
-      if (ctx.column > 0) out += ":" + std::to_string(ctx.column);
+      out.append(":").append(std::to_string(ctx.line));
+      if (ctx.column > 0) out.append(":").append(std::to_string(ctx.column));
     }
-    out += ": ";
+    out.append(": ");
   }
-  if (!ctx.key.empty()) out += ctx.key + ": ";
-  out += message;
+  if (!ctx.key.empty()) out.append(ctx.key).append(": ");
+  out.append(message);
   std::string extra;
-  if (!ctx.dataset.empty()) extra += "dataset " + ctx.dataset;
+  if (!ctx.dataset.empty()) extra.append("dataset ").append(ctx.dataset);
   if (ctx.frame) {
-    if (!extra.empty()) extra += ", ";
-    extra += "frame " + std::to_string(*ctx.frame);
+    if (!extra.empty()) extra.append(", ");
+    extra.append("frame ").append(std::to_string(*ctx.frame));
   }
-  if (!extra.empty()) out += " (" + extra + ")";
+  if (!extra.empty()) out.append(" (").append(extra).append(")");
   return out;
 }
 

@@ -26,6 +26,13 @@ struct ErrorContext {
   int column = 0;       ///< 1-based column in `file`, 0 when unknown
 };
 
+/// Context naming only a file.
+inline ErrorContext in_file(std::string file) {
+  ErrorContext c;
+  c.file = std::move(file);
+  return c;
+}
+
 /// The one exception type of wavestack: a sentence plus its context.
 class Error : public std::runtime_error {
 public:

@@ -10,11 +10,18 @@
 //    column frequencies); the rest follows from Hermitian symmetry.
 //
 // Only this module calls the FFTW planner, under one mutex. Plans are always
-// made on scratch buffers (never on live data) and executed with the
-// new-array interface, which is safe to call concurrently from many threads
-// on different arrays. Arrays passed to execute must be 64-byte aligned
-// (wavestack::Image guarantees it) and must not overlap unless the plan was
-// made in-place.
+// made on scratch buffers from fftwf_malloc (never on live data) and executed
+// with the new-array interface, which is safe to call concurrently from many
+// threads on different arrays. The new-array interface requires the arrays to
+// have the same SIMD alignment as the planning buffers: fftwf_malloc memory
+// has fftwf_alignment_of() == 0, and so has every 64-byte aligned pointer
+// (wavestack::Image guarantees it; FFTW's strictest SIMD alignment is 64
+// bytes for AVX-512, 32 for AVX). execute() checks this and throws
+// Error(internal) on a misaligned pointer, on an in-place plan given two
+// arrays, or an out-of-place plan given overlapping ones.
+//
+// Out-of-place plans never modify their input (FFTW_PRESERVE_INPUT).
+// Plans are never destroyed: a plan returned once stays valid until exit.
 #include "wavestack/core/image.hpp"
 
 #include <cstddef>
@@ -40,7 +47,12 @@ public:
   Direction direction() const noexcept { return dir_; }
   bool in_place() const noexcept { return in_place_; }
   /// Execute on `in` → `out` (both h*w contiguous, 64-byte aligned). For an
-  /// in-place plan pass the same pointer twice.
+  /// in-place plan pass the same pointer twice. Thread-safe (different arrays
+  /// per thread). The wrapper allocates nothing, but FFTW itself mallocs
+  /// small scratch blocks inside some algorithms (measured with FFTW 3.3.10:
+  /// none for estimate plans of 64..2048 squared out-of-place, one for
+  /// in-place, and h+1 row buffers for a measured in-place h×w plan of
+  /// h >= 1024), so this is not strictly allocation-free.
   virtual void execute(const cfloat* in, cfloat* out) const = 0;
 
 protected:
@@ -57,9 +69,11 @@ public:
   std::size_t height() const noexcept { return h_; }
   std::size_t width() const noexcept { return w_; }
   std::size_t spectrum_width() const noexcept { return w_ / 2 + 1; }
-  /// Note: FFTW's r2c does not modify `in` for out-of-place 2-D plans only
-  /// when FFTW_PRESERVE_INPUT is honoured; this wrapper guarantees `in` is
-  /// left unchanged.
+  /// `in` is left unchanged: the plan is made with FFTW_PRESERVE_INPUT, which
+  /// FFTW honours for (multi-dimensional) r2c; only multi-dimensional c2r has
+  /// no input-preserving algorithm. `in` is h*w floats, `out` h*(w/2+1)
+  /// complex values, both 64-byte aligned. Thread-safe; see C2C::execute on
+  /// FFTW's internal scratch allocations.
   virtual void execute(const float* in, cfloat* out) const = 0;
 
 protected:
@@ -72,14 +86,24 @@ protected:
 std::shared_ptr<const C2C> plan_c2c(std::size_t h, std::size_t w, Direction dir, bool in_place = false);
 std::shared_ptr<const R2C> plan_r2c(std::size_t h, std::size_t w);
 
-/// Planner effort for plans made from now on (default: estimate).
+/// Planner effort for plans made from now on (default: estimate). The effort
+/// is part of the cache key, so plans made earlier stay as they were. Note
+/// that FFTW uses loaded wisdom for estimate plans too, so after load_wisdom
+/// even estimate plans may pick measured algorithms.
 void set_planning(Planning p);
 Planning planning();
 
-/// Load / save FFTW wisdom (the planner's saved choices). load returns false
-/// when the file does not exist; throws Error on a corrupt file.
+/// Load / save FFTW wisdom (the planner's saved choices; recreate it when the
+/// FFTW build or the machine changes). load returns false when the file does
+/// not exist; throws Error(config) naming the file when it is not wisdom of
+/// this FFTW build. save writes `path` atomically (temporary file + rename)
+/// and throws Error(output) naming the file when that fails.
 bool load_wisdom(const std::string& path);
 void save_wisdom(const std::string& path);
+
+/// True when `p` has the alignment plans are made with (any 64-byte aligned
+/// pointer, e.g. Image::data(), qualifies).
+bool is_aligned(const void* p) noexcept;
 
 /// Number of plans currently cached (for tests).
 std::size_t cached_plans();
@@ -100,9 +124,22 @@ inline std::size_t bin_of(long f, std::size_t n) noexcept {
   return static_cast<std::size_t>(((f % m) + m) % m);
 }
 
-/// Move the zero frequency to the centre (numpy.fft.fftshift), out-of-place.
+/// Physical frequency of bin k for length n and sample pitch d:
+/// signed_bin(k, n) / (n·d) (numpy.fft.fftfreq(n, d)[k]).
+inline double bin_frequency(std::size_t k, std::size_t n, double d) noexcept {
+  return static_cast<double>(signed_bin(k, n)) / (static_cast<double>(n) * d);
+}
+
+/// Move the zero frequency to the centre (numpy.fft.fftshift, both axes):
+/// out(y, x) = in((y - h/2) mod h, (x - w/2) mod w) with integer division, so
+/// bin 0 lands at (h/2, w/2) for odd and even sizes. Out-of-place: `in` and
+/// `out` must have the same shape and must not overlap (Error(internal)
+/// otherwise). Views may be strided.
 void fftshift(ImageView<const cfloat> in, ImageView<cfloat> out);
-/// Inverse of fftshift (numpy.fft.ifftshift), out-of-place.
+void fftshift(ImageView<const float> in, ImageView<float> out);
+/// Inverse of fftshift (numpy.fft.ifftshift): out(y, x) = in((y + h/2) mod h,
+/// (x + w/2) mod w). Differs from fftshift for odd sizes.
 void ifftshift(ImageView<const cfloat> in, ImageView<cfloat> out);
+void ifftshift(ImageView<const float> in, ImageView<float> out);
 
 } // namespace wavestack::fft

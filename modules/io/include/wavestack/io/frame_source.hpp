@@ -1,0 +1,92 @@
+#pragma once
+// FrameSource: reads camera frames one at a time from an HDF5 dataset.
+//
+// Accepted datasets: rank 2 (H,W), read as one frame, or rank 3 (N,H,W);
+// element types uint8, int8, uint16, int16, uint32, int32, uint64, int64,
+// float32 and float64 in either byte order (DESIGN.md names u8, u16, i16,
+// u32, f32, f64; the other integers cost nothing extra). Frames must be at
+// least 16×16 pixels; any larger size is fine (e.g. 1200×1920).
+//
+// Each read() is ONE hyperslab (1,H,W) converted to float32 by HDF5 itself
+// (memory type H5T_NATIVE_FLOAT) straight into the caller's buffer; the
+// stack is never loaded whole. Integers above 2^24 lose precision in float32.
+// The conversion buffer and the chunk cache are sized at open() so that a
+// steady stream of reads allocates nothing on our side, and a chunk spanning
+// several frames is decompressed once rather than once per frame.
+//
+// Thread safety: every member that calls HDF5 takes io::hdf5_mutex(). One
+// FrameSource must not be used from two threads at the same time.
+#include "wavestack/core/image.hpp"
+#include "wavestack/io/hdf5.hpp"
+
+#include <cstddef>
+#include <memory>
+#include <string>
+#include <string_view>
+#include <vector>
+
+namespace wavestack::io {
+
+/// Element type of a source dataset.
+enum class DType { u8, i8, u16, i16, u32, i32, u64, i64, f32, f64 };
+
+/// numpy name of a DType: "uint8", "int16", "float32", ...
+std::string_view dtype_name(DType t);
+
+/// "file.h5:/dataset" split into its two parts.
+struct DatasetSpec {
+  std::string file;
+  std::string dataset; ///< empty when the spec names only a file
+};
+
+/// Split "file.h5:/dataset" at the last ':'. A spec without ':' (or one that
+/// names an existing file as a whole, so "run:2.h5" still works) is a file
+/// alone. A dataset without a leading '/' gets one ("f.h5:holo" -> "/holo").
+/// Error(config) for an empty file part (":/x").
+DatasetSpec split_dataset_spec(std::string_view spec);
+
+class FrameSource {
+public:
+  /// Open `dataset` (e.g. "/holograms") in the HDF5 file at `path`.
+  /// Error(input), naming file and dataset, when: the file does not exist, is
+  /// not an HDF5 file or cannot be read; the dataset is missing (the message
+  /// lists up to 10 datasets that do exist) or is a group; the rank is not 2
+  /// or 3; a dimension is zero; frames are smaller than 16×16; the element
+  /// type is not one of the accepted ones (the message names the found type).
+  static FrameSource open(const std::string& path, const std::string& dataset);
+
+  FrameSource(FrameSource&&) noexcept;
+  FrameSource& operator=(FrameSource&&) noexcept;
+  ~FrameSource();
+
+  std::size_t count() const noexcept;   ///< number of frames (1 for rank 2)
+  std::size_t height() const noexcept;  ///< rows per frame
+  std::size_t width() const noexcept;   ///< columns per frame
+  int rank() const noexcept;            ///< 2 or 3
+  DType dtype() const noexcept;
+  std::string_view dtype_name() const noexcept { return io::dtype_name(dtype()); }
+  const std::string& path() const noexcept;
+  const std::string& dataset() const noexcept; ///< absolute, e.g. "/holograms"
+  /// Chunk shape of the dataset, empty when it is contiguous.
+  const std::vector<std::uint64_t>& chunk() const noexcept;
+
+  /// Attributes of the dataset, for `inspect` and for instrument metadata.
+  std::vector<Attribute> attributes() const;
+
+  /// Read frame `frame` into `out` (height()×width(), any row stride),
+  /// converted to float. Error(input) with the frame index when the index is
+  /// out of range or HDF5 fails; Error(internal) when `out` has another shape.
+  void read(std::size_t frame, ImageView<float> out);
+
+  /// The datasets in a file, for `inspect FILE.h5` (same as io::list_datasets).
+  static std::vector<DatasetInfo> list_datasets(const std::string& path, std::size_t limit = 1000) {
+    return io::list_datasets(path, limit);
+  }
+
+private:
+  struct Impl;
+  explicit FrameSource(std::unique_ptr<Impl> impl);
+  std::unique_ptr<Impl> impl_;
+};
+
+} // namespace wavestack::io

@@ -1,0 +1,63 @@
+#pragma once
+// The engine: plans a loaded pipeline once (opens the input's metadata,
+// checks each stage's input kind exists upstream, computes every shape and
+// grid, makes FFT plans), then streams frames through a TBB pipeline:
+//   read (serial, in order) -> process (parallel) -> write (serial, in order)
+// with a bounded number of frames in flight. Errors from any filter cancel
+// the run and surface at one place with the frame and dataset added.
+#include "wavestack/pipeline/config.hpp"
+#include "wavestack/pipeline/stage.hpp"
+
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <vector>
+
+namespace wavestack::pipeline {
+
+struct PlanSummary {
+  std::int64_t source_frames = 0;       ///< frames in the input dataset
+  std::size_t height = 0, width = 0;    ///< input frame size
+  std::string dtype;                    ///< input element type
+  std::vector<std::int64_t> frames;     ///< selected source indices
+  std::vector<Shape> shapes;            ///< output shape of each stage
+  Shape output;                         ///< shape written to the file
+  Notes notes;                          ///< what the stages decided (carrier, radius, ...)
+};
+
+struct RunSettings {
+  int threads = 0;          ///< 0 = the [run] table or all cores
+  int tokens = 0;           ///< frames in flight; 0 = the [run] table or 2 × threads
+  bool progress = false;    ///< print progress on stderr
+  std::string frames;       ///< --frames A:B override, empty = the file's selection
+};
+
+struct RunReport {
+  std::size_t frames = 0;
+  double seconds = 0;
+  std::string output;
+  std::vector<std::string> previews;
+};
+
+class Engine {
+public:
+  explicit Engine(Pipeline& pipeline);
+  ~Engine();
+  Engine(const Engine&) = delete;
+  Engine& operator=(const Engine&) = delete;
+
+  /// Plan the chain. A dry run reads no frames (for `wavestack check`).
+  const PlanSummary& plan(bool dry_run, const std::string& frames_override = {});
+  /// Run a planned pipeline to completion (or throw; no file is then left at
+  /// the output path).
+  RunReport run(const RunSettings& settings);
+
+private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+};
+
+/// Map any exception to the exit status of DESIGN.md and print it.
+int report_error(const std::exception& e);
+
+} // namespace wavestack::pipeline

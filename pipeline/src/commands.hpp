@@ -1,0 +1,30 @@
+#pragma once
+// The subcommands of the wavestack program, one function each.
+#include <string>
+#include <vector>
+
+namespace wavestack::pipeline {
+
+struct RunArgs {
+  std::string pipeline, output, frames;
+  std::vector<std::string> sets;
+  int threads = 0;
+  bool resume = false, quiet = false;
+};
+struct CheckArgs {
+  std::string pipeline;
+  std::vector<std::string> sets;
+};
+struct DemoArgs {
+  std::string dir = "wavestack-demo";
+  int frames = 16;
+  int size = 1024;
+  bool quiet = false;
+};
+
+int cmd_run(const RunArgs& a);
+int cmd_check(const CheckArgs& a);
+int cmd_inspect(const std::string& target);
+int cmd_demo(const DemoArgs& a);
+
+} // namespace wavestack::pipeline

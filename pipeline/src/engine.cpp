@@ -1,0 +1,312 @@
+#include "wavestack/pipeline/engine.hpp"
+
+#include "output.hpp"
+#include "wavestack/core/error.hpp"
+#include "wavestack/core/log.hpp"
+#include "wavestack/core/units.hpp"
+#include "wavestack/io/frame_source.hpp"
+
+#include <tbb/concurrent_queue.h>
+#include <tbb/enumerable_thread_specific.h>
+#include <tbb/global_control.h>
+#include <tbb/info.h>
+#include <tbb/parallel_pipeline.h>
+
+#include <atomic>
+#include <chrono>
+#include <cmath>
+#include <cstdio>
+#include <filesystem>
+#include <numbers>
+#include <unistd.h>
+
+namespace fs = std::filesystem;
+
+namespace wavestack::pipeline {
+namespace {
+
+/// A token: one frame's state plus its product buffers, reused for every
+/// frame it carries.
+struct Token {
+  FrameState frame;
+  Products products;
+};
+
+/// PlanContext over the engine's probe frame. The probe is the first
+/// selected frame; it is carried through each stage right after that stage
+/// is planned, so stage k plans on what stage k-1 really produces.
+class EngineContext final : public PlanContext {
+public:
+  EngineContext(const Instrument& ins, bool dry, FrameState* probe, const Image<float>* bg)
+      : ins_(ins), dry_(dry), probe_(probe), bg_(bg) {}
+  /// Plan the carrier search on the background hologram when there is one:
+  /// without objects its strongest peak is the carrier itself.
+  void set_probe(FrameState* probe) { probe_ = probe; }
+  const Instrument& instrument() const override { return ins_; }
+  bool dry_run() const override { return dry_; }
+  const Image<float>& probe_hologram() override {
+    if (dry_ || !probe_) fail_internal("a stage asked for data during a dry run");
+    if (probe_->kind != Kind::hologram) fail_internal("the probe frame is no longer a hologram");
+    return probe_->hologram;
+  }
+  const Image<float>* background() override { return bg_; }
+
+private:
+  const Instrument& ins_;
+  bool dry_;
+  FrameState* probe_;
+  const Image<float>* bg_;
+};
+
+std::string shape_text(const Shape& s) {
+  char buf[160];
+  std::snprintf(buf, sizeof buf, "%s %zux%zu, pitch %s", std::string(kind_name(s.kind)).c_str(), s.height,
+                s.width, format_length(s.grid.dx).c_str());
+  return buf;
+}
+
+} // namespace
+
+struct Engine::Impl {
+  Pipeline& pl;
+  PlanSummary summary;
+  bool planned = false;
+  bool dry = false;
+  std::unique_ptr<io::FrameSource> source;
+  Image<float> background;
+  bool has_background = false;
+
+  explicit Impl(Pipeline& p) : pl(p) {}
+
+  void load_background() {
+    if (pl.input.background_path.empty()) return;
+    io::FrameSource bg = io::FrameSource::open(pl.input.background_path, pl.input.background_dataset);
+    if (bg.height() != source->height() || bg.width() != source->width()) {
+      ErrorContext c;
+      c.file = pl.input.background_path;
+      c.dataset = pl.input.background_dataset;
+      fail_input("background hologram is " + std::to_string(bg.height()) + "x" + std::to_string(bg.width()) +
+                     " but the holograms in " + pl.input.path + " are " + std::to_string(source->height()) + "x" +
+                     std::to_string(source->width()),
+                 c);
+    }
+    // Average every background frame: the object-free reference gets less noisy.
+    background.resize(bg.height(), bg.width());
+    background.fill(0.0f);
+    Image<float> tmp(bg.height(), bg.width());
+    Image<double> acc(bg.height(), bg.width(), 0.0);
+    for (std::size_t i = 0; i < bg.count(); ++i) {
+      bg.read(i, tmp.view());
+      for (std::size_t k = 0; k < tmp.size(); ++k) acc.data()[k] += tmp.data()[k];
+    }
+    for (std::size_t k = 0; k < tmp.size(); ++k)
+      background.data()[k] = static_cast<float>(acc.data()[k] / static_cast<double>(bg.count()));
+    has_background = true;
+  }
+
+  const PlanSummary& plan(bool dry_run, const std::string& frames_override) {
+    dry = dry_run;
+    source = std::make_unique<io::FrameSource>(io::FrameSource::open(pl.input.path, pl.input.dataset));
+    summary = {};
+    summary.source_frames = static_cast<std::int64_t>(source->count());
+    summary.height = source->height();
+    summary.width = source->width();
+    summary.dtype = source->dtype_name();
+    FrameRange range = frames_override.empty() ? pl.input.frames : FrameRange::parse(frames_override);
+    summary.frames = range.select(static_cast<std::int64_t>(source->count()));
+    if (summary.frames.empty()) {
+      ErrorContext c;
+      c.file = pl.input.path;
+      c.dataset = pl.input.dataset;
+      fail_input("the frame selection \"" + range.str() + "\" selects no frame of the " +
+                     std::to_string(source->count()) + " in the dataset",
+                 c);
+    }
+    if (!dry) load_background();
+
+    // Probes: the first selected frame and, when given, the background; both
+    // are carried through each stage right after it is planned.
+    FrameState probe, probe_bg;
+    if (!dry) {
+      probe.source_index = summary.frames.front();
+      probe.hologram.resize(source->height(), source->width());
+      source->read(static_cast<std::size_t>(probe.source_index), probe.hologram.view());
+      if (has_background) probe_bg.hologram = background;
+    }
+    EngineContext ctx(pl.instrument, dry, dry ? nullptr : has_background ? &probe_bg : &probe,
+                      has_background ? &background : nullptr);
+
+    Shape shape;
+    shape.kind = Kind::hologram;
+    shape.height = source->height();
+    shape.width = source->width();
+    shape.grid = pl.instrument.grid();
+    for (std::size_t i = 0; i < pl.stages.size(); ++i) {
+      Stage& st = *pl.stages[i];
+      ErrorContext where;
+      where.file = pl.file;
+      where.key = "stage " + std::to_string(i + 1) + " (" + std::string(st.type()) + ")";
+      if (st.consumes() != shape.kind)
+        fail_config("needs a " + std::string(kind_name(st.consumes())) + " as input, but the stage before it gives a " +
+                        std::string(kind_name(shape.kind)) +
+                        (st.consumes() == Kind::field && shape.kind == Kind::hologram
+                             ? "; put a sideband stage before it"
+                             : ""),
+                    where);
+      try {
+        shape = st.plan(shape, ctx);
+      } catch (const Error& e) {
+        throw e.with(where);
+      }
+      summary.shapes.push_back(shape);
+      for (auto& [k, v] : st.notes()) summary.notes["stage" + std::to_string(i + 1) + "." + k] = v;
+      if (!dry) {
+        auto ws = st.make_workspace();
+        ErrorContext fc;
+        fc.frame = probe.source_index;
+        fc.dataset = pl.input.dataset;
+        try {
+          st.process(probe, ws.get());
+        } catch (const Error& e) {
+          throw e.with(fc);
+        }
+        probe.kind = st.produces();
+        if (has_background) {
+          st.process(probe_bg, ws.get());
+          probe_bg.kind = st.produces();
+        }
+      }
+      log::debug(std::string(where.key) + " -> " + shape_text(shape));
+    }
+    if (shape.kind == Kind::hologram)
+      fail_config("the pipeline ends with a hologram; add a sideband stage to reconstruct the field",
+                  in_file(pl.file));
+    summary.output = shape;
+    planned = true;
+    return summary;
+  }
+
+  RunReport run(const RunSettings& settings) {
+    if (!planned || dry) fail_internal("run() needs a plan made with dry_run = false");
+    const int threads = settings.threads > 0 ? settings.threads
+                        : pl.run.threads > 0 ? pl.run.threads
+                                             : tbb::info::default_concurrency();
+    const int tokens = settings.tokens > 0 ? settings.tokens : pl.run.tokens > 0 ? pl.run.tokens : 2 * threads;
+    tbb::global_control limit(tbb::global_control::max_allowed_parallelism, static_cast<std::size_t>(threads));
+
+    OutputFile out(pl, summary);
+    const std::size_t n = summary.frames.size();
+
+    // Token pool: all frame buffers exist before the first frame moves.
+    std::vector<std::unique_ptr<Token>> pool;
+    tbb::concurrent_bounded_queue<Token*> free_tokens;
+    for (int i = 0; i < tokens; ++i) {
+      auto t = std::make_unique<Token>();
+      t->frame.hologram.resize(summary.height, summary.width);
+      out.size_products(t->products);
+      free_tokens.push(t.get());
+      pool.push_back(std::move(t));
+    }
+    // Per-thread workspaces, one per stage, made on first use by each thread.
+    using Workspaces = std::vector<std::unique_ptr<StageWorkspace>>;
+    tbb::enumerable_thread_specific<Workspaces> workspaces([&] {
+      Workspaces w;
+      for (auto& st : pl.stages) w.push_back(st->make_workspace());
+      return w;
+    });
+
+    const bool progress = settings.progress;
+    const auto t0 = std::chrono::steady_clock::now();
+    std::size_t next = 0, written = 0;
+
+    auto add_frame = [&](const Error& e, std::int64_t frame) {
+      ErrorContext c;
+      c.frame = frame;
+      c.dataset = pl.input.dataset;
+      return e.with(c);
+    };
+
+    tbb::parallel_pipeline(
+        static_cast<std::size_t>(tokens),
+        tbb::make_filter<void, Token*>(tbb::filter_mode::serial_in_order,
+                                       [&](tbb::flow_control& fc) -> Token* {
+                                         if (next >= n) {
+                                           fc.stop();
+                                           return nullptr;
+                                         }
+                                         Token* t = nullptr;
+                                         free_tokens.pop(t);
+                                         t->frame.output_index = next;
+                                         t->frame.source_index = summary.frames[next];
+                                         t->frame.kind = Kind::hologram;
+                                         t->frame.distance = 0;
+                                         try {
+                                           source->read(static_cast<std::size_t>(t->frame.source_index), t->frame.hologram.view());
+                                         } catch (const Error& e) {
+                                           throw add_frame(e, t->frame.source_index);
+                                         }
+                                         ++next;
+                                         return t;
+                                       }) &
+            tbb::make_filter<Token*, Token*>(tbb::filter_mode::parallel,
+                                             [&](Token* t) -> Token* {
+                                               Workspaces& ws = workspaces.local();
+                                               try {
+                                                 for (std::size_t i = 0; i < pl.stages.size(); ++i) {
+                                                   pl.stages[i]->process(t->frame, ws[i].get());
+                                                   t->frame.kind = pl.stages[i]->produces();
+                                                 }
+                                                 out.compute(t->frame, t->products);
+                                               } catch (const Error& e) {
+                                                 throw add_frame(e, t->frame.source_index);
+                                               }
+                                               return t;
+                                             }) &
+            tbb::make_filter<Token*, void>(tbb::filter_mode::serial_in_order, [&](Token* t) {
+              try {
+                out.write(t->frame, t->products);
+              } catch (const Error& e) {
+                throw add_frame(e, t->frame.source_index);
+              }
+              free_tokens.push(t);
+              ++written;
+              if (progress) {
+                double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+                double fps = written / std::max(s, 1e-9);
+                std::fprintf(stderr, "\r  %zu/%zu frames, %.1f frames/s, %.0f s left   ", written, n, fps,
+                             (n - written) / std::max(fps, 1e-9));
+                if (written == n) std::fprintf(stderr, "\n");
+              }
+            }));
+
+    out.finish();
+    RunReport r;
+    r.frames = written;
+    r.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    r.output = pl.output.path;
+    r.previews = out.previews();
+    return r;
+  }
+};
+
+Engine::Engine(Pipeline& pipeline) : impl_(std::make_unique<Impl>(pipeline)) {}
+Engine::~Engine() = default;
+const PlanSummary& Engine::plan(bool dry_run, const std::string& frames_override) {
+  return impl_->plan(dry_run, frames_override);
+}
+RunReport Engine::run(const RunSettings& settings) { return impl_->run(settings); }
+
+int report_error(const std::exception& e) {
+  if (auto* w = dynamic_cast<const Error*>(&e)) {
+    std::fprintf(stderr, "wavestack: error: %s\n", w->what());
+    return w->exit_code();
+  }
+  if (dynamic_cast<const std::bad_alloc*>(&e)) {
+    std::fprintf(stderr, "wavestack: error: out of memory; lower [run] frames_in_flight or --threads\n");
+    return 1;
+  }
+  std::fprintf(stderr, "wavestack: error: %s\n", e.what());
+  return 1;
+}
+
+} // namespace wavestack::pipeline

@@ -1,0 +1,65 @@
+// The wavestack command line (DESIGN.md "Command line", a contract).
+#include "commands.hpp"
+#include "wavestack/core/error.hpp"
+#include "wavestack/pipeline/engine.hpp"
+#include "wavestack/pipeline/registry.hpp"
+
+#include <CLI/CLI.hpp>
+
+#include <cstdio>
+
+using namespace wavestack;
+using namespace wavestack::pipeline;
+
+int main(int argc, char** argv) {
+  CLI::App app{"wavestack: from off-axis hologram stacks in HDF5 to refocused phase, OPD and field maps"};
+  app.require_subcommand(1);
+  std::string stage_help = "stage types:\n";
+  for (const StageInfo& s : stage_registry())
+    stage_help += "  " + std::string(s.type) + ": " + std::string(s.summary) + "\n      keys: " +
+                  std::string(s.keys) + "\n";
+  app.footer(stage_help + "\nexit status: 0 success, 2 bad command line or pipeline file, 3 bad input data, "
+                          "4 output not written, 1 anything else");
+
+  RunArgs run;
+  auto* run_cmd = app.add_subcommand("run", "run a pipeline file over every selected frame");
+  run_cmd->add_option("pipeline", run.pipeline, "pipeline file (TOML)")->required();
+  run_cmd->add_option("-o,--output", run.output, "output HDF5 file (overrides [output] path)");
+  run_cmd->add_option("--set", run.sets, "override a key, e.g. --set stage.3.distance=\"-5 um\"");
+  run_cmd->add_option("--frames", run.frames, "frame selection start:stop[:step] (overrides [input] frames)");
+  run_cmd->add_option("--threads", run.threads, "worker threads (default: all cores)")->check(CLI::PositiveNumber);
+  run_cmd->add_flag("--resume", run.resume, "continue a partial output left by a killed run");
+  run_cmd->add_flag("-q,--quiet", run.quiet, "print only warnings and errors");
+
+  CheckArgs check;
+  auto* check_cmd = app.add_subcommand("check", "validate a pipeline file and show the planned shapes; reads no frames");
+  check_cmd->add_option("pipeline", check.pipeline, "pipeline file (TOML)")->required();
+  check_cmd->add_option("--set", check.sets, "override a key as for run");
+
+  std::string inspect_target;
+  auto* inspect_cmd = app.add_subcommand("inspect", "show datasets, shapes, types and attributes of an HDF5 file");
+  inspect_cmd->add_option("target", inspect_target, "FILE.h5 or FILE.h5:/dataset")->required();
+
+  DemoArgs demo;
+  auto* demo_cmd = app.add_subcommand("demo", "write the demo holograms and run the demo pipeline");
+  demo_cmd->add_option("dir", demo.dir, "folder for the demo (default: ./wavestack-demo)");
+  demo_cmd->add_option("--frames", demo.frames, "number of demo frames (default 16)")->check(CLI::PositiveNumber);
+  demo_cmd->add_option("--size", demo.size, "frame side in pixels (default 1024)")->check(CLI::Range(64, 8192));
+  demo_cmd->add_flag("-q,--quiet", demo.quiet, "print only warnings and errors");
+
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    const int code = app.exit(e);
+    return code == 0 ? 0 : 2;
+  }
+  try {
+    if (*run_cmd) return cmd_run(run);
+    if (*check_cmd) return cmd_check(check);
+    if (*inspect_cmd) return cmd_inspect(inspect_target);
+    if (*demo_cmd) return cmd_demo(demo);
+  } catch (const std::exception& e) {
+    return report_error(e);
+  }
+  return 1;
+}

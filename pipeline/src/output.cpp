@@ -1,0 +1,205 @@
+#include "output.hpp"
+
+#include "wavestack/core/error.hpp"
+#include "wavestack/core/log.hpp"
+#include "wavestack/core/units.hpp"
+#include "wavestack/render/preview.hpp"
+
+#include <cmath>
+#include <cstdio>
+#include <filesystem>
+#include <numbers>
+
+namespace fs = std::filesystem;
+
+namespace wavestack::pipeline {
+namespace {
+bool has(const std::vector<std::string>& v, const char* s) {
+  for (const auto& x : v)
+    if (x == s) return true;
+  return false;
+}
+} // namespace
+
+std::string preview_folder(const std::string& output_path) {
+  fs::path p(output_path);
+  return (p.parent_path() / (p.stem().string() + "_previews")).string();
+}
+
+OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
+    : pl_(pl), plan_(plan), sink_([&] {
+        // Never write over the raw data (DESIGN.md: raw data is never overwritten).
+        if (io::same_file(pl.output.path, pl.input.path) || pl.output.path == pl.input.path)
+          fail_config("the output path is the input file; choose another [output] path so the raw data stays intact",
+                      in_file(pl.output.path));
+        if (!pl.input.background_path.empty() && io::same_file(pl.output.path, pl.input.background_path))
+          fail_config("the output path is the background file; choose another [output] path",
+                      in_file(pl.output.path));
+        // Make the output folder when it is missing (like the previews').
+        const fs::path parent = fs::path(pl.output.path).parent_path();
+        if (!parent.empty()) {
+          std::error_code ec;
+          fs::create_directories(parent, ec);
+          if (ec) fail_output("cannot create the output folder: " + ec.message(), in_file(parent.string()));
+        }
+        io::SinkInfo info;
+        info.software_version = WAVESTACK_VERSION;
+        info.pipeline = pl.text();
+        info.source_file = pl.input.path;
+        info.source_dataset = pl.input.dataset;
+        io::CompressionOptions c;
+        c.method = pl.output.compression == "deflate" ? io::Compression::deflate : io::Compression::none;
+        c.level = pl.output.level;
+        return io::FrameSink::create(pl.output.path, plan.frames.size(), info, c);
+      }()) {
+  const auto& prods = pl.output.products;
+  field_ = has(prods, "field");
+  amplitude_ = has(prods, "amplitude");
+  phase_ = has(prods, "phase");
+  opd_ = has(prods, "opd");
+  compress_ = pl.output.compression == "deflate";
+  const Shape& s = plan.output;
+  const bool unwrapped = s.kind == Kind::phase;
+  const std::int64_t wrapped = unwrapped ? 0 : 1;
+  if (field_) h_field_ = sink_.add_image("field", io::ImageType::complex64, s.height, s.width, "1", s.grid, true);
+  if (amplitude_) h_amplitude_ = sink_.add_image("amplitude", io::ImageType::f32, s.height, s.width, "1", s.grid, true);
+  if (phase_)
+    h_phase_ = sink_.add_image("phase", io::ImageType::f32, s.height, s.width, "rad", s.grid, true,
+                               {{"wrapped", wrapped}});
+  if (opd_)
+    h_opd_ = sink_.add_image("opd", io::ImageType::f32, s.height, s.width, "nm", s.grid, true,
+                             {{"wrapped", wrapped}});
+  // What the run was, in attributes a reader's script can use directly.
+  const Instrument& ins = pl.instrument;
+  sink_.set_attribute("/", "wavelength", ins.wavelength);
+  sink_.set_attribute("/", "camera_pixel_pitch", ins.pixel_pitch);
+  sink_.set_attribute("/", "magnification", ins.magnification);
+  sink_.set_attribute("/", "numerical_aperture", ins.numerical_aperture);
+  sink_.set_attribute("/", "medium_index", ins.medium_index);
+  sink_.set_attribute("/", "frames_selected", plan.frames.size() == 0 ? std::string() : pl.input.frames.str());
+  if (!pl.profile_file.empty()) sink_.set_attribute("/", "instrument_profile", pl.profile_file);
+  for (const auto& [k, v] : plan.notes) sink_.set_attribute("/", k, v);
+  if (!pl.input.background_path.empty())
+    sink_.set_attribute("/", "background", pl.input.background_path + ":" + pl.input.background_dataset);
+
+  if (pl.output.preview_every >= 0) {
+    preview_dir_ = preview_folder(pl.output.path);
+    std::error_code ec;
+    fs::create_directories(preview_dir_, ec);
+    if (ec) fail_output("cannot create the preview folder: " + ec.message(), in_file(preview_dir_));
+  }
+}
+
+OutputFile::~OutputFile() {
+  if (!finished_) {
+    // A failed run leaves nothing that looks like a result.
+    std::error_code ec;
+    for (const auto& p : previews_) fs::remove(p, ec);
+  }
+}
+
+void OutputFile::size_products(Products& p) const {
+  const Shape& s = plan_.output;
+  if (amplitude_ || pl_.output.preview_every >= 0) p.amplitude.resize(s.height, s.width);
+  if (phase_ || opd_ || pl_.output.preview_every >= 0) p.phase.resize(s.height, s.width);
+  if (opd_) p.opd.resize(s.height, s.width);
+}
+
+bool OutputFile::wants_preview(std::size_t i) const {
+  const int k = pl_.output.preview_every;
+  if (k < 0) return false;
+  if (k == 0) return i == 0;
+  return i % static_cast<std::size_t>(k) == 0;
+}
+
+void OutputFile::compute(const FrameState& f, Products& p) const {
+  const std::size_t n = f.field.data.size();
+  const cfloat* u = f.field.data.data();
+  if (!p.amplitude.empty())
+    for (std::size_t i = 0; i < n; ++i) p.amplitude.data()[i] = std::abs(u[i]);
+  if (!p.phase.empty()) {
+    if (f.kind == Kind::phase) std::copy(f.phase.begin(), f.phase.end(), p.phase.begin());
+    else
+      for (std::size_t i = 0; i < n; ++i) p.phase.data()[i] = std::arg(u[i]);
+  }
+  if (opd_) {
+    // OPD = φ·λ0/(2π), in nm (DESIGN.md: /opd is in nm).
+    const float scale = static_cast<float>(f.field.grid.wavelength / (2.0 * std::numbers::pi) * 1e9);
+    for (std::size_t i = 0; i < n; ++i) p.opd.data()[i] = p.phase.data()[i] * scale;
+  }
+  if (compress_) {
+    if (field_) sink_.compress_frame(h_field_, f.field.data.view(), p.packed[0]);
+    if (amplitude_) sink_.compress_frame(h_amplitude_, p.amplitude.view(), p.packed[1]);
+    if (phase_) sink_.compress_frame(h_phase_, p.phase.view(), p.packed[2]);
+    if (opd_) sink_.compress_frame(h_opd_, p.opd.view(), p.packed[3]);
+  }
+  if (wants_preview(f.output_index)) render_previews(f, p);
+}
+
+void OutputFile::render_previews(const FrameState& f, Products& p) const {
+  char stem[64];
+  std::snprintf(stem, sizeof stem, "frame%05lld_", static_cast<long long>(f.source_index));
+  const double pitch = f.field.grid.dx;
+  std::vector<std::string> made;
+  {
+    render::PreviewOptions o;
+    o.title = "amplitude, frame " + std::to_string(f.source_index) + ", z = " + format_length(f.field.grid.plane);
+    o.units = "a.u.";
+    o.colormap = render::Colormap::viridis;
+    o.pixel_pitch_m = pitch;
+    const std::string path = (fs::path(preview_dir_) / (std::string(stem) + "amplitude.png")).string();
+    render::write_preview(path, p.amplitude.view(), o);
+    made.push_back(path);
+  }
+  {
+    render::PreviewOptions o;
+    const bool wrapped = f.kind != Kind::phase;
+    o.title = std::string(wrapped ? "wrapped phase" : "phase") + ", frame " + std::to_string(f.source_index);
+    o.units = "rad";
+    o.colormap = wrapped ? render::Colormap::twilight : render::Colormap::viridis;
+    if (wrapped) {
+      o.range = std::make_pair(-std::numbers::pi, std::numbers::pi);
+    }
+    o.pixel_pitch_m = pitch;
+    const std::string path = (fs::path(preview_dir_) / (std::string(stem) + "phase.png")).string();
+    render::write_preview(path, p.phase.view(), o);
+    made.push_back(path);
+  }
+  std::lock_guard lock(preview_mutex_);
+  previews_.insert(previews_.end(), made.begin(), made.end());
+}
+
+void OutputFile::write(const FrameState& f, Products& p) {
+  const std::size_t i = f.output_index;
+  if (compress_) {
+    if (field_) sink_.write_frame_compressed(h_field_, i, p.packed[0].data(), p.packed[0].size());
+    if (amplitude_) sink_.write_frame_compressed(h_amplitude_, i, p.packed[1].data(), p.packed[1].size());
+    if (phase_) sink_.write_frame_compressed(h_phase_, i, p.packed[2].data(), p.packed[2].size());
+    if (opd_) sink_.write_frame_compressed(h_opd_, i, p.packed[3].data(), p.packed[3].size());
+  } else {
+    if (field_) sink_.write_frame(h_field_, i, f.field.data.view());
+    if (amplitude_) sink_.write_frame(h_amplitude_, i, p.amplitude.view());
+    if (phase_) sink_.write_frame(h_phase_, i, p.phase.view());
+    if (opd_) sink_.write_frame(h_opd_, i, p.opd.view());
+  }
+  sink_.set_focus_distance(i, f.field.grid.plane);
+  sink_.mark_done(i, f.source_index);
+}
+
+void OutputFile::finish() {
+  const auto warnings = log::warnings();
+  if (!warnings.empty()) {
+    std::string all;
+    for (const auto& w : warnings) all += w + "\n";
+    sink_.set_attribute("/", "warnings", all);
+  }
+  sink_.finish();
+  finished_ = true;
+}
+
+std::vector<std::string> OutputFile::previews() const {
+  std::lock_guard lock(preview_mutex_);
+  return previews_;
+}
+
+} // namespace wavestack::pipeline

@@ -1,0 +1,14 @@
+#pragma once
+// Factories of the built-in stages; the registry (registry.cpp) lists them.
+#include "wavestack/pipeline/params.hpp"
+#include "wavestack/pipeline/stage.hpp"
+
+#include <memory>
+
+namespace wavestack::pipeline::stages {
+
+std::unique_ptr<Stage> make_fringe(Params& p);
+std::unique_ptr<Stage> make_sideband(Params& p);
+std::unique_ptr<Stage> make_propagate(Params& p);
+
+} // namespace wavestack::pipeline::stages
