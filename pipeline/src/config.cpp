@@ -219,6 +219,9 @@ Pipeline load_pipeline_text(const std::string& text, const std::string& file, co
   for (const Override& o : overrides) apply_override(pl.table, o);
 
   Params root(pl.table, file, "");
+  // Unknown top-level tables first: a misspelt [output] is reported as such.
+  for (const char* k : {"input", "instrument", "stage", "output", "run"}) root.node(k);
+  root.finish();
 
   // [input]
   {
@@ -358,7 +361,6 @@ Pipeline load_pipeline_text(const std::string& text, const std::string& file, co
     pl.run.tokens = static_cast<int>(p.number_in("frames_in_flight", 0, 4096, 0));
     p.finish();
   }
-  root.finish();
   return pl;
 }
 

@@ -103,7 +103,7 @@ TEST_CASE("invalid TOML reports the parser's position") {
   CHECK_THAT(std::string(e.what()), Catch::Contains("not valid TOML"));
 }
 
-TEST_CASE("--set overrides keys, including stage keys by number") {
+TEST_CASE("overrides (--set) change keys, including stage keys by number") {
   std::vector<Override> o = {Override::parse("output.path=other.h5"), Override::parse("stage.3.distance=5 um"),
                              Override::parse("instrument.magnification=20")};
   Pipeline pl = load_pipeline_text(good, "p.toml", "/d", o);

@@ -59,7 +59,7 @@ TEST_CASE("the transfer function is exp(i 2π z sqrt((n/λ0)^2 - fx^2 - fy^2))/N
   // (Opt. Express 17(22), 19662 (2009) [from memory]); evaluated here
   // independently in long double. Grid chosen so both cuts are active:
   // Nyquist 1/(2·0.3 µm) = 1.67/µm, n/λ0 = 2.11/µm (corners evanescent),
-  // u_limit ≈ 0.7/µm.
+  // u_limit ≈ 0.7/µm (padded) and 0.2/µm (unpadded).
   // Even padded sizes (96x120) and odd ones (45x35, pad_factor 1) — the
   // implementation mirrors bins k and n-k, which differs for odd n.
   const Grid g = make_grid(0.3e-6, 0.3e-6, hene, 1.333);

@@ -1,0 +1,265 @@
+#!/usr/bin/python3
+"""Contract checks of the wavestack program (DESIGN.md "Output file",
+"Pipeline file" and "Command line" sections): the output layout read back by
+h5py, exit statuses and messages, atomic output, raw data never overwritten,
+and bit-identical results for 1 and 2 threads.
+
+usage: /usr/bin/python3 check_contract.py WAVESTACK_BINARY CASE
+CASE: layout | compression | errors | atomic | threads | check
+Exit 0 when every assertion holds; the failures are printed.
+"""
+import datetime
+import hashlib
+import os
+import re
+import subprocess
+import sys
+import tempfile
+import tomllib
+
+import h5py
+import numpy as np
+
+sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "reference"))
+import offaxis_reference as ref  # noqa: E402
+
+problems = []
+
+
+def expect(cond, what):
+    if not cond:
+        problems.append(what)
+        print("FAIL:", what)
+
+
+def make_input(folder, frames=3, h=240, w=300, corrupt_frame=None):
+    """Off-axis holograms of a smooth phase object (Takeda 1982 model,
+    offaxis_reference.py), uint16; optionally deflate-compressed chunks with
+    one chunk's bytes overwritten to make that frame unreadable."""
+    inst = ref.Instrument()
+    car = ref.Carrier(ref.CHECK_CARRIER_FX, ref.CHECK_CARRIER_FY)
+    dy = dx = inst.dx
+    yy, xx = np.mgrid[0:h, 0:w] * dy
+    refw = ref.reference_wave(h, w, dy, dx, car, 2.0)
+    stack = np.empty((frames, h, w), np.uint16)
+    rng = np.random.default_rng(7)
+    for k in range(frames):
+        r2 = (yy - h * dy / 2) ** 2 + (xx - (w / 2 + 5 * k) * dx) ** 2
+        obj = np.exp(1j * 1.5 * np.exp(-r2 / (2 * (3e-6) ** 2)))
+        inten = ref.record(obj, refw)
+        counts = np.clip(np.round(inten / inten.mean() * 1800 + rng.normal(0, 2, inten.shape)), 0, 4095)
+        stack[k] = counts
+    path = os.path.join(folder, "holo.h5")
+    with h5py.File(path, "w") as f:
+        if corrupt_frame is None:
+            f.create_dataset("holograms", data=stack)
+        else:
+            f.create_dataset("holograms", data=stack, chunks=(1, h, w), compression="gzip")
+    if corrupt_frame is not None:
+        with h5py.File(path, "r") as f:
+            info = f["holograms"].id.get_chunk_info(corrupt_frame)
+        with open(path, "r+b") as fh:
+            fh.seek(info.byte_offset + 16)
+            fh.write(b"\xff" * 64)
+    return path, inst, stack
+
+
+def pipeline_text(inst, out="out.h5", extra_output="", distance='"-2 um"'):
+    return f"""[input]
+path = "holo.h5"
+dataset = "/holograms"
+
+{inst.toml()}
+[[stage]]
+type = "fringe"
+
+[[stage]]
+type = "sideband"
+order = "+1"
+
+[[stage]]
+type = "propagate"
+distance = {distance}
+
+[output]
+path = "{out}"
+products = ["field", "amplitude", "phase", "opd"]
+{extra_output}"""
+
+
+def write(folder, name, text):
+    p = os.path.join(folder, name)
+    with open(p, "w") as f:
+        f.write(text)
+    return p
+
+
+def run(binary, *args):
+    r = subprocess.run([binary, *args], capture_output=True, text=True)
+    return r.returncode, r.stdout, r.stderr
+
+
+def digest(path):
+    return hashlib.sha256(open(path, "rb").read()).hexdigest()
+
+
+def case_layout(binary, d):
+    _, inst, stack = make_input(d)
+    p = write(d, "p.toml", pipeline_text(inst))
+    code, out, err = run(binary, "run", p, "--quiet")
+    expect(code == 0, f"run exits 0 (got {code}: {err.strip()})")
+    path = os.path.join(d, "out.h5")
+    expect(os.path.exists(path) and not os.path.exists(path + ".partial"), "final file exists, no .partial left")
+    with h5py.File(path, "r") as f:
+        a = f.attrs
+        expect(a["format"] == "wavestack", "format attribute")
+        expect(int(a["format_version"]) == 1, "format_version = 1")
+        expect(len(str(a["software_version"])) > 0, "software_version")
+        created = str(a["created"])
+        expect(re.fullmatch(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d(\.\d+)?Z", created) is not None,
+               f"created is ISO 8601 UTC ({created})")
+        table = tomllib.loads(str(a["pipeline"]))  # the pipeline as run is valid TOML
+        expect(table["stage"][2]["distance"] == "-2 um", "pipeline attribute holds the stages as run")
+        expect(str(a["source_dataset"]) == "/holograms", "source_dataset")
+        expect(os.path.samefile(str(a["source_file"]), os.path.join(d, "holo.h5")), "source_file")
+        n, H, W = stack.shape
+        field = f["field"]
+        expect(field.dtype == np.complex64, f"field reads as complex64 (got {field.dtype})")
+        expect(field.shape[0] == n, "N frames")
+        _, h, w = field.shape
+        for name, units, dt in [("field", "1", np.complex64), ("amplitude", "1", np.float32),
+                                ("phase", "rad", np.float32), ("opd", "nm", np.float32)]:
+            ds = f[name]
+            expect(ds.shape == (n, h, w), f"{name} shape {ds.shape}")
+            expect(ds.dtype == dt, f"{name} dtype {ds.dtype}")
+            expect(ds.chunks == (1, h, w), f"{name} chunk is one frame ({ds.chunks})")
+            expect(ds.attrs["units"] == units, f"{name} units")
+            pitch = np.asarray(ds.attrs["pixel_pitch"])
+            # after the crop the field of view is kept: pitch = H dy / h [derived]
+            expect(np.allclose(pitch, [H * inst.dx / h, W * inst.dx / w], rtol=1e-9),
+                   f"{name} pixel_pitch {pitch} after cropping to {h}x{w}")
+            expect(abs(float(ds.attrs["wavelength"]) - inst.wavelength) < 1e-15, f"{name} wavelength")
+            expect(abs(float(ds.attrs["medium_index"]) - inst.medium_index) < 1e-9, f"{name} medium_index")
+            expect(abs(float(ds.attrs["plane"]) + 2e-6) < 1e-15, f"{name} plane = -2 um")
+        expect(int(f["phase"].attrs["wrapped"]) == 1, "phase wrapped = 1 without unwrap")
+        u = f["field"][...]
+        expect(np.allclose(f["amplitude"][...], np.abs(u), rtol=1e-6, atol=1e-6), "amplitude = |field|")
+        expect(np.allclose(f["phase"][...], np.angle(u), atol=1e-5), "phase = arg(field)")
+        # OPD = phase * lambda0 / (2 pi) in nm (definition of optical path [common practice])
+        expect(np.allclose(f["opd"][...], f["phase"][...] * inst.wavelength / (2 * np.pi) * 1e9, atol=1e-3),
+               "opd = phase * lambda0 / 2pi in nm")
+        expect(list(f["frames/index"][...]) == list(range(n)), "frames/index")
+        expect(f["frames/index"].dtype == np.int64, "frames/index is int64")
+        expect(list(f["frames/done"][...]) == [1] * n and f["frames/done"].dtype == np.uint8, "frames/done")
+        expect(np.allclose(f["focus/distance"][...], -2e-6) and f["focus/distance"].attrs["units"] == "m",
+               "focus/distance")
+        for ds in ["frames/index", "frames/done"]:
+            expect("units" in f[ds].attrs, f"{ds} has units")
+    prev = os.path.join(d, "out_previews")
+    expect(os.path.isdir(prev) and len(os.listdir(prev)) >= 2, "PNG previews written")
+    # -o and --set override the output path
+    code, _, err = run(binary, "run", p, "-q", "-o", os.path.join(d, "o2.h5"), "--frames", "1:3")
+    expect(code == 0, f"-o run ({err.strip()})")
+    with h5py.File(os.path.join(d, "o2.h5"), "r") as f:
+        expect(list(f["frames/index"][...]) == [1, 2], "--frames 1:3 selects source frames 1 and 2")
+
+
+def case_compression(binary, d):
+    _, inst, _ = make_input(d)
+    p1 = write(d, "a.toml", pipeline_text(inst, "plain.h5"))
+    p2 = write(d, "b.toml", pipeline_text(inst, "packed.h5", 'compression = "deflate"\nlevel = 3\n'))
+    for p in (p1, p2):
+        code, _, err = run(binary, "run", p, "-q")
+        expect(code == 0, f"run {p} ({err.strip()})")
+    with h5py.File(os.path.join(d, "plain.h5")) as a, h5py.File(os.path.join(d, "packed.h5")) as b:
+        for name in ["field", "amplitude", "phase", "opd"]:
+            expect(b[name].compression == "gzip" and b[name].shuffle, f"{name} has shuffle+deflate")
+            expect(a[name].compression is None, f"{name} uncompressed by default")
+            expect(np.array_equal(a[name][...], b[name][...]), f"{name} identical with and without compression")
+
+
+def case_errors(binary, d):
+    path, inst, _ = make_input(d, frames=1)
+    before = digest(path)
+    # bare number for a length -> 2, names file:line:column and key
+    p = write(d, "bare.toml", pipeline_text(inst, distance="-2"))
+    code, _, err = run(binary, "run", p)
+    line = pipeline_text(inst, distance="-2").splitlines().index("distance = -2") + 1
+    expect(code == 2, f"bare number exits 2 (got {code})")
+    expect(f"bare.toml:{line}:12" in err and "distance" in err and "-2 um" in err,
+           f"bare number message names line {line}, column 12, key and the expected form: {err.strip()}")
+    # unknown key -> 2 with line and key
+    text = pipeline_text(inst).replace('order = "+1"', 'order = "+1"\nradious = 0.3')
+    p = write(d, "key.toml", text)
+    line = text.splitlines().index("radious = 0.3") + 1
+    code, _, err = run(binary, "run", p)
+    expect(code == 2 and f"key.toml:{line}:1" in err and 'unknown key "radious"' in err,
+           f"unknown key exits 2 naming line {line} and the key: {code} {err.strip()}")
+    # missing dataset -> 3, names the file and the dataset
+    p = write(d, "ds.toml", pipeline_text(inst).replace('dataset = "/holograms"', 'dataset = "/frames"'))
+    code, _, err = run(binary, "run", p)
+    expect(code == 3 and "/frames" in err and "holo.h5" in err, f"missing dataset exits 3: {code} {err.strip()}")
+    # missing input file -> 3
+    p = write(d, "nf.toml", pipeline_text(inst).replace('path = "holo.h5"', 'path = "nothere.h5"'))
+    code, _, err = run(binary, "run", p)
+    expect(code == 3 and "nothere.h5" in err, f"missing file exits 3: {code} {err.strip()}")
+    # output = input: refused, raw data untouched
+    p = write(d, "same.toml", pipeline_text(inst, out="holo.h5"))
+    code, _, err = run(binary, "run", p)
+    expect(code == 2 and "input" in err, f"output = input refused with exit 2: {code} {err.strip()}")
+    expect(digest(path) == before, "input file byte-identical after the refused run")
+    # bad command line -> 2
+    code, _, _ = run(binary, "run")
+    expect(code == 2, f"missing argument exits 2 (got {code})")
+    code, _, _ = run(binary, "frobnicate")
+    expect(code == 2, f"unknown subcommand exits 2 (got {code})")
+    code, out, _ = run(binary, "--help")
+    expect(code == 0 and "propagate" in out and "sideband" in out, "--help lists the stage types")
+    expect(not os.path.exists(os.path.join(d, "out.h5")), "no output file after failed runs")
+
+
+def case_atomic(binary, d):
+    path, inst, _ = make_input(d, frames=4, corrupt_frame=2)
+    before = digest(path)
+    p = write(d, "p.toml", pipeline_text(inst))
+    code, _, err = run(binary, "run", p, "--threads", "2")
+    expect(code == 3, f"an unreadable frame exits 3 (got {code}: {err.strip()})")
+    expect("frame 2" in err and "/holograms" in err, f"message names the frame and dataset: {err.strip()}")
+    expect(not os.path.exists(os.path.join(d, "out.h5")), "a failed run leaves no file at the output path")
+    prev = os.path.join(d, "out_previews")
+    expect(not os.path.isdir(prev) or not os.listdir(prev), "and no previews")
+    expect(digest(path) == before, "input file byte-identical")
+
+
+def case_threads(binary, d):
+    _, inst, _ = make_input(d, frames=6)
+    p = write(d, "p.toml", pipeline_text(inst))
+    outs = []
+    for t in ("1", "2"):
+        o = os.path.join(d, f"t{t}.h5")
+        code, _, err = run(binary, "run", p, "-q", "--threads", t, "-o", o)
+        expect(code == 0, f"--threads {t} ({err.strip()})")
+        outs.append(o)
+    with h5py.File(outs[0]) as a, h5py.File(outs[1]) as b:
+        for name in ["field", "amplitude", "phase", "opd", "frames/index", "focus/distance"]:
+            expect(np.array_equal(a[name][...], b[name][...]), f"{name} bit-identical for 1 and 2 threads")
+
+
+def case_check(binary, d):
+    _, inst, _ = make_input(d, frames=2)
+    p = write(d, "p.toml", pipeline_text(inst))
+    code, out, err = run(binary, "check", p)
+    expect(code == 0 and "ok" in out, f"check passes: {code} {err.strip()}")
+    expect("stage 3 propagate" in out and "field" in out, f"check prints the planned shapes: {out}")
+    expect(not os.path.exists(os.path.join(d, "out.h5")), "check writes nothing")
+
+
+CASES = {"layout": case_layout, "compression": case_compression, "errors": case_errors,
+         "atomic": case_atomic, "threads": case_threads, "check": case_check}
+
+if __name__ == "__main__":
+    binary, case = sys.argv[1], sys.argv[2]
+    with tempfile.TemporaryDirectory() as d:
+        CASES[case](os.path.abspath(binary), d)
+    print("FAILED" if problems else "PASS", f"({len(problems)} problems)")
+    sys.exit(1 if problems else 0)
