@@ -7,6 +7,7 @@
 #include "wavestack/pipeline/registry.hpp"
 
 #include <charconv>
+#include <cstdlib>
 #include <cmath>
 #include <filesystem>
 #include <fstream>
@@ -353,12 +354,19 @@ Pipeline load_pipeline_text(const std::string& text, const std::string& file, co
     p.finish();
   }
 
-  // [run] (optional): threads and frames in flight
+  // [run] (optional): threads, frames in flight, FFT planning
+  if (const char* env = std::getenv("WAVESTACK_FFT_PLANNING")) {
+    const std::string e = env;
+    if (e == "measure" || e == "estimate") pl.run.fft_planning = e;
+    else fail_config("WAVESTACK_FFT_PLANNING must be \"measure\" or \"estimate\", saw \"" + e + "\"");
+  }
   if (const toml::node* n = root.node("run")) {
     if (!n->is_table()) fail_config("[run] must be a table", in_file(file));
     Params p(*n->as_table(), file, "[run]");
     pl.run.threads = static_cast<int>(p.number_in("threads", 0, 1024, 0));
     pl.run.tokens = static_cast<int>(p.number_in("frames_in_flight", 0, 4096, 0));
+    if (p.has("fft_planning")) pl.run.fft_planning = p.choice("fft_planning", {"measure", "estimate"}, "measure");
+    if (auto w = p.string("fft_wisdom")) pl.run.fft_wisdom = (*w == "auto" || *w == "none") ? *w : resolve(folder, *w);
     p.finish();
   }
   return pl;

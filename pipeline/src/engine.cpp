@@ -4,6 +4,7 @@
 #include "wavestack/core/error.hpp"
 #include "wavestack/core/log.hpp"
 #include "wavestack/core/units.hpp"
+#include "wavestack/fft/fft.hpp"
 #include "wavestack/io/frame_source.hpp"
 
 #include <tbb/concurrent_queue.h>
@@ -16,6 +17,7 @@
 #include <chrono>
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <filesystem>
 #include <numbers>
 #include <unistd.h>
@@ -30,6 +32,7 @@ namespace {
 struct Token {
   FrameState frame;
   Products products;
+  std::vector<unsigned char> raw; ///< the frame as stored, converted in the parallel stage
 };
 
 /// PlanContext over the engine's probe frame. The probe is the first
@@ -63,6 +66,20 @@ std::string shape_text(const Shape& s) {
   std::snprintf(buf, sizeof buf, "%s %zux%zu, pitch %s", std::string(kind_name(s.kind)).c_str(), s.height,
                 s.width, format_length(s.grid.dx).c_str());
   return buf;
+}
+
+/// The wisdom file of this machine: plans measured once are reused by every
+/// later run, which makes "measure" both fast to plan and reproducible.
+std::string wisdom_path(const RunOptions& run) {
+  if (run.fft_wisdom == "none") return {};
+  if (run.fft_wisdom != "auto") return run.fft_wisdom;
+  fs::path base;
+  if (const char* x = std::getenv("XDG_CACHE_HOME"); x && *x) base = x;
+  else if (const char* h = std::getenv("HOME"); h && *h) base = fs::path(h) / ".cache";
+  else return {};
+  char host[256] = "host";
+  gethostname(host, sizeof host - 1);
+  return (base / "wavestack" / ("fftw-wisdom-" + std::string(host))).string();
 }
 
 } // namespace
@@ -104,8 +121,38 @@ struct Engine::Impl {
     has_background = true;
   }
 
+  std::string wisdom;
+  std::size_t plans_before = 0;
+
+  void configure_fft() {
+    // A dry run only needs shapes: no timing of FFTs.
+    const bool measure = !dry && pl.run.fft_planning == "measure";
+    fft::set_planning(measure ? fft::Planning::measure : fft::Planning::estimate);
+    wisdom = measure ? wisdom_path(pl.run) : std::string();
+    if (!wisdom.empty()) {
+      try {
+        fft::load_wisdom(wisdom);
+      } catch (const Error& e) {
+        log::warn("ignoring the FFT wisdom file: " + std::string(e.what()), "wisdom");
+      }
+    }
+    plans_before = fft::cached_plans();
+  }
+
+  void keep_wisdom() {
+    if (wisdom.empty() || fft::cached_plans() == plans_before) return;
+    std::error_code ec;
+    fs::create_directories(fs::path(wisdom).parent_path(), ec);
+    try {
+      fft::save_wisdom(wisdom);
+    } catch (const Error& e) {
+      log::warn("could not save the FFT wisdom file: " + std::string(e.what()), "wisdom");
+    }
+  }
+
   const PlanSummary& plan(bool dry_run, const std::string& frames_override) {
     dry = dry_run;
+    configure_fft();
     source = std::make_unique<io::FrameSource>(io::FrameSource::open(pl.input.path, pl.input.dataset));
     summary = {};
     summary.source_frames = static_cast<std::int64_t>(source->count());
@@ -182,6 +229,7 @@ struct Engine::Impl {
       fail_config("the pipeline ends with a hologram; add a sideband stage to reconstruct the field",
                   in_file(pl.file));
     summary.output = shape;
+    keep_wisdom();
     planned = true;
     return summary;
   }
@@ -203,6 +251,7 @@ struct Engine::Impl {
     for (int i = 0; i < tokens; ++i) {
       auto t = std::make_unique<Token>();
       t->frame.hologram.resize(summary.height, summary.width);
+      t->raw.resize(source->raw_frame_bytes());
       out.size_products(t->products);
       free_tokens.push(t.get());
       pool.push_back(std::move(t));
@@ -241,7 +290,7 @@ struct Engine::Impl {
                                          t->frame.kind = Kind::hologram;
                                          t->frame.distance = 0;
                                          try {
-                                           source->read(static_cast<std::size_t>(t->frame.source_index), t->frame.hologram.view());
+                                           source->read_raw(static_cast<std::size_t>(t->frame.source_index), t->raw.data());
                                          } catch (const Error& e) {
                                            throw add_frame(e, t->frame.source_index);
                                          }
@@ -252,6 +301,8 @@ struct Engine::Impl {
                                              [&](Token* t) -> Token* {
                                                Workspaces& ws = workspaces.local();
                                                try {
+                                                 io::FrameSource::convert_raw(source->dtype(), t->raw.data(),
+                                                                              t->frame.hologram.view());
                                                  for (std::size_t i = 0; i < pl.stages.size(); ++i) {
                                                    pl.stages[i]->process(t->frame, ws[i].get());
                                                    t->frame.kind = pl.stages[i]->produces();

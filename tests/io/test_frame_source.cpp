@@ -73,16 +73,24 @@ TEST_CASE("every accepted element type reads back as the values h5py wrote") {
     CHECK(src.rank() == 3);
     std::string expected_name = type.substr(0, type.size() - (type.ends_with("be") ? 2 : 0));
     CHECK(src.dtype_name() == expected_name);
-    Image<float> frame(37, 53);
+    Image<float> frame(37, 53), via_raw(37, 53);
+    std::vector<unsigned char> raw(src.raw_frame_bytes());
+    CHECK(raw.size() == 37 * 53 * dtype_size(src.dtype()));
     for (std::size_t f = 0; f < 3; ++f) {
       src.read(f, frame);
-      std::size_t bad = 0;
+      // The pipeline's path: raw read, conversion in the parallel stage.
+      src.read_raw(f, raw.data());
+      FrameSource::convert_raw(src.dtype(), raw.data(), via_raw.view());
+      std::size_t bad = 0, bad_raw = 0;
       for (std::size_t y = 0; y < 37; ++y)
-        for (std::size_t x = 0; x < 53; ++x)
+        for (std::size_t x = 0; x < 53; ++x) {
           // HDF5 converts to float32 like a C cast (round to nearest), so
           // the expected value is the double formula cast to float: exact.
           if (frame(y, x) != static_cast<float>(scaled(type, pattern(f, y, x)))) ++bad;
+          if (via_raw(y, x) != frame(y, x)) ++bad_raw;
+        }
       CHECK(bad == 0);
+      CHECK(bad_raw == 0);
     }
   }
 }

@@ -45,6 +45,7 @@ DatasetSpec split_dataset_spec(std::string_view spec) {
 struct FrameSource::Impl {
   std::string path, dataset;
   Hid file, dset, file_space, mem_space, xfer;
+  Hid raw_space; ///< contiguous (h, w) memory space of read_raw()
   std::size_t mem_stride = 0; ///< row stride mem_space was made for
   std::size_t n = 0, h = 0, w = 0;
   int rank = 0;
@@ -289,6 +290,89 @@ void FrameSource::read(std::size_t frame, ImageView<float> out) {
   if (sel < 0) fail_hdf5(ErrorKind::input, "cannot select the frame", ctx);
   if (H5Dread(m.dset.get(), H5T_NATIVE_FLOAT, m.mem_space.get(), m.file_space.get(), m.xfer.get(), out.data()) < 0)
     fail_hdf5(ErrorKind::input, "cannot read the frame", ctx);
+}
+
+namespace {
+hid_t native_type(DType t) {
+  switch (t) {
+  case DType::u8: return H5T_NATIVE_UINT8;
+  case DType::i8: return H5T_NATIVE_INT8;
+  case DType::u16: return H5T_NATIVE_UINT16;
+  case DType::i16: return H5T_NATIVE_INT16;
+  case DType::u32: return H5T_NATIVE_UINT32;
+  case DType::i32: return H5T_NATIVE_INT32;
+  case DType::u64: return H5T_NATIVE_UINT64;
+  case DType::i64: return H5T_NATIVE_INT64;
+  case DType::f32: return H5T_NATIVE_FLOAT;
+  case DType::f64: return H5T_NATIVE_DOUBLE;
+  }
+  return H5T_NATIVE_FLOAT;
+}
+
+template <class T> void convert_rows(const T* src, ImageView<float> out) {
+  for (std::size_t y = 0; y < out.height(); ++y) {
+    const T* s = src + y * out.width();
+    float* d = out.row(y);
+    for (std::size_t x = 0; x < out.width(); ++x) d[x] = static_cast<float>(s[x]);
+  }
+}
+} // namespace
+
+std::size_t dtype_size(DType t) {
+  switch (t) {
+  case DType::u8:
+  case DType::i8: return 1;
+  case DType::u16:
+  case DType::i16: return 2;
+  case DType::u32:
+  case DType::i32:
+  case DType::f32: return 4;
+  case DType::u64:
+  case DType::i64:
+  case DType::f64: return 8;
+  }
+  return 4;
+}
+
+std::size_t FrameSource::raw_frame_bytes() const noexcept { return impl_->h * impl_->w * dtype_size(impl_->type); }
+
+void FrameSource::read_raw(std::size_t frame, void* dst) {
+  Impl& m = *impl_;
+  ErrorContext ctx = m.ctx();
+  ctx.frame = static_cast<std::int64_t>(frame);
+  if (frame >= m.n)
+    fail_input("frame " + std::to_string(frame) + " is out of range: the dataset has " + std::to_string(m.n) +
+                   (m.n == 1 ? " frame (index 0)" : " frames (0 to " + std::to_string(m.n - 1) + ")"),
+               ctx);
+  Lock lock;
+  // The raw path always uses a contiguous (h, w) memory space.
+  const hsize_t mdims[2] = {m.h, m.w};
+  if (!m.raw_space) m.raw_space = space_hid(H5Screate_simple(2, mdims, nullptr));
+  herr_t sel;
+  if (m.rank == 3) {
+    const hsize_t start[3] = {frame, 0, 0}, count[3] = {1, m.h, m.w};
+    sel = H5Sselect_hyperslab(m.file_space.get(), H5S_SELECT_SET, start, nullptr, count, nullptr);
+  } else {
+    sel = H5Sselect_all(m.file_space.get());
+  }
+  if (!m.raw_space || sel < 0) fail_hdf5(ErrorKind::input, "cannot select the frame", ctx);
+  if (H5Dread(m.dset.get(), native_type(m.type), m.raw_space.get(), m.file_space.get(), m.xfer.get(), dst) < 0)
+    fail_hdf5(ErrorKind::input, "cannot read the frame", ctx);
+}
+
+void FrameSource::convert_raw(DType type, const void* src, ImageView<float> out) {
+  switch (type) {
+  case DType::u8: return convert_rows(static_cast<const std::uint8_t*>(src), out);
+  case DType::i8: return convert_rows(static_cast<const std::int8_t*>(src), out);
+  case DType::u16: return convert_rows(static_cast<const std::uint16_t*>(src), out);
+  case DType::i16: return convert_rows(static_cast<const std::int16_t*>(src), out);
+  case DType::u32: return convert_rows(static_cast<const std::uint32_t*>(src), out);
+  case DType::i32: return convert_rows(static_cast<const std::int32_t*>(src), out);
+  case DType::u64: return convert_rows(static_cast<const std::uint64_t*>(src), out);
+  case DType::i64: return convert_rows(static_cast<const std::int64_t*>(src), out);
+  case DType::f32: return convert_rows(static_cast<const float*>(src), out);
+  case DType::f64: return convert_rows(static_cast<const double*>(src), out);
+  }
 }
 
 } // namespace wavestack::io

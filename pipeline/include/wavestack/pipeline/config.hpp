@@ -46,6 +46,14 @@ struct OutputSpec {
 struct RunOptions {
   int threads = 0; ///< 0 = all cores
   int tokens = 0;  ///< frames in flight; 0 = 2 × threads
+  /// FFTW planner effort: "measure" (default: fastest execution; plans are
+  /// kept in the wisdom file so later runs reuse exactly the same ones) or
+  /// "estimate" (no timing; a plan is a pure function of the sizes).
+  /// The environment variable WAVESTACK_FFT_PLANNING overrides the default.
+  std::string fft_planning = "measure";
+  /// Wisdom file: "auto" ($XDG_CACHE_HOME or ~/.cache, /wavestack/), "none",
+  /// or a path (relative to the pipeline file).
+  std::string fft_wisdom = "auto";
 };
 
 struct Pipeline {

@@ -32,6 +32,8 @@ enum class DType { u8, i8, u16, i16, u32, i32, u64, i64, f32, f64 };
 
 /// numpy name of a DType: "uint8", "int16", "float32", ...
 std::string_view dtype_name(DType t);
+/// Bytes per element of a DType.
+std::size_t dtype_size(DType t);
 
 /// "file.h5:/dataset" split into its two parts.
 struct DatasetSpec {
@@ -77,6 +79,16 @@ public:
   /// converted to float. Error(input) with the frame index when the index is
   /// out of range or HDF5 fails; Error(internal) when `out` has another shape.
   void read(std::size_t frame, ImageView<float> out);
+
+  /// Size of one frame in its stored element type (h·w·element size).
+  std::size_t raw_frame_bytes() const noexcept;
+  /// Read frame `frame` in its own element type, native byte order, into
+  /// `dst` (raw_frame_bytes() bytes, contiguous): one hyperslab, no type
+  /// conversion. The serial reader of the pipeline uses this and converts
+  /// with convert_raw() in its parallel stage, which keeps the read thin.
+  void read_raw(std::size_t frame, void* dst);
+  /// Convert a frame read by read_raw() (element type `type`) to float.
+  static void convert_raw(DType type, const void* src, ImageView<float> out);
 
   /// The datasets in a file, for `inspect FILE.h5` (same as io::list_datasets).
   static std::vector<DatasetInfo> list_datasets(const std::string& path, std::size_t limit = 1000) {
