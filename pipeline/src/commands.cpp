@@ -63,6 +63,7 @@ int cmd_run(const RunArgs& a) {
     std::printf("wrote %zu frames to %s in %.2f s (%.1f frames/s)\n", r.frames, r.output.c_str(), r.seconds,
                 r.frames / std::max(r.seconds, 1e-9));
     for (const std::string& p : r.previews) std::printf("preview %s\n", p.c_str());
+    for (const std::string& p : r.tables) std::printf("table   %s\n", p.c_str());
   }
   return 0;
 }

@@ -14,6 +14,7 @@
 #include <tbb/parallel_pipeline.h>
 
 #include <atomic>
+#include <limits>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
@@ -40,8 +41,9 @@ struct Token {
 /// is planned, so stage k plans on what stage k-1 really produces.
 class EngineContext final : public PlanContext {
 public:
-  EngineContext(const Instrument& ins, bool dry, FrameState* probe, const Image<float>* bg)
-      : ins_(ins), dry_(dry), probe_(probe), bg_(bg) {}
+  EngineContext(const Instrument& ins, bool dry, FrameState* probe, const Image<float>* bg,
+                const FrameState* bg_state)
+      : ins_(ins), dry_(dry), probe_(probe), bg_(bg), bg_state_(bg_state) {}
   /// Plan the carrier search on the background hologram when there is one:
   /// without objects its strongest peak is the carrier itself.
   void set_probe(FrameState* probe) { probe_ = probe; }
@@ -53,13 +55,23 @@ public:
     return probe_->hologram;
   }
   const Image<float>* background() override { return bg_; }
+  const FrameState* background_state() override { return dry_ ? nullptr : bg_state_; }
 
 private:
   const Instrument& ins_;
   bool dry_;
   FrameState* probe_;
   const Image<float>* bg_;
+  const FrameState* bg_state_;
 };
+
+/// Give a frame state one buffer per declared record and table.
+void size_state(FrameState& f, const PlanSummary& s) {
+  f.records.resize(s.records.size());
+  for (std::size_t i = 0; i < s.records.size(); ++i)
+    f.records[i].assign(std::max<std::size_t>(s.records[i].columns, 1), std::numeric_limits<double>::quiet_NaN());
+  f.table_rows.resize(s.tables.size());
+}
 
 std::string shape_text(const Shape& s) {
   char buf[160];
@@ -181,7 +193,7 @@ struct Engine::Impl {
       if (has_background) probe_bg.hologram = background;
     }
     EngineContext ctx(pl.instrument, dry, dry ? nullptr : has_background ? &probe_bg : &probe,
-                      has_background ? &background : nullptr);
+                      has_background ? &background : nullptr, has_background ? &probe_bg : nullptr);
 
     Shape shape;
     shape.kind = Kind::hologram;
@@ -207,6 +219,13 @@ struct Engine::Impl {
       }
       summary.shapes.push_back(shape);
       for (auto& [k, v] : st.notes()) summary.notes["stage" + std::to_string(i + 1) + "." + k] = v;
+      st.record_base = summary.records.size();
+      st.table_base = summary.tables.size();
+      for (auto& r : st.records()) summary.records.push_back(r);
+      for (auto& t : st.tables()) summary.tables.push_back(t);
+      for (auto& c : st.constants()) summary.constants.push_back(c);
+      size_state(probe, summary);
+      size_state(probe_bg, summary);
       if (!dry) {
         auto ws = st.make_workspace();
         ErrorContext fc;
@@ -219,6 +238,7 @@ struct Engine::Impl {
         }
         probe.kind = st.produces();
         if (has_background) {
+          probe_bg.source_index = -1;
           st.process(probe_bg, ws.get());
           probe_bg.kind = st.produces();
         }
@@ -252,6 +272,7 @@ struct Engine::Impl {
       auto t = std::make_unique<Token>();
       t->frame.hologram.resize(summary.height, summary.width);
       t->raw.resize(source->raw_frame_bytes());
+      size_state(t->frame, summary);
       out.size_products(t->products);
       free_tokens.push(t.get());
       pool.push_back(std::move(t));
@@ -275,60 +296,87 @@ struct Engine::Impl {
       return e.with(c);
     };
 
-    tbb::parallel_pipeline(
-        static_cast<std::size_t>(tokens),
-        tbb::make_filter<void, Token*>(tbb::filter_mode::serial_in_order,
-                                       [&](tbb::flow_control& fc) -> Token* {
-                                         if (next >= n) {
-                                           fc.stop();
-                                           return nullptr;
-                                         }
-                                         Token* t = nullptr;
-                                         free_tokens.pop(t);
-                                         t->frame.output_index = next;
-                                         t->frame.source_index = summary.frames[next];
-                                         t->frame.kind = Kind::hologram;
-                                         t->frame.distance = 0;
-                                         try {
-                                           source->read_raw(static_cast<std::size_t>(t->frame.source_index), t->raw.data());
-                                         } catch (const Error& e) {
-                                           throw add_frame(e, t->frame.source_index);
-                                         }
-                                         ++next;
-                                         return t;
-                                       }) &
-            tbb::make_filter<Token*, Token*>(tbb::filter_mode::parallel,
-                                             [&](Token* t) -> Token* {
-                                               Workspaces& ws = workspaces.local();
-                                               try {
-                                                 io::FrameSource::convert_raw(source->dtype(), t->raw.data(),
-                                                                              t->frame.hologram.view());
-                                                 for (std::size_t i = 0; i < pl.stages.size(); ++i) {
-                                                   pl.stages[i]->process(t->frame, ws[i].get());
-                                                   t->frame.kind = pl.stages[i]->produces();
-                                                 }
-                                                 out.compute(t->frame, t->products);
-                                               } catch (const Error& e) {
-                                                 throw add_frame(e, t->frame.source_index);
-                                               }
-                                               return t;
-                                             }) &
-            tbb::make_filter<Token*, void>(tbb::filter_mode::serial_in_order, [&](Token* t) {
-              try {
-                out.write(t->frame, t->products);
-              } catch (const Error& e) {
-                throw add_frame(e, t->frame.source_index);
-              }
-              free_tokens.push(t);
-              ++written;
-              if (progress) {
-                double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-                double fps = written / std::max(s, 1e-9);
-                std::fprintf(stderr, "\r  %zu/%zu frames, %.1f frames/s, %.0f s left   ", written, n, fps,
-                             (n - written) / std::max(fps, 1e-9));
-                if (written == n) std::fprintf(stderr, "\n");
-              }
-            }));
+    // Filters: read (serial) -> runs of parallel stages, with each sequential
+    // stage in a serial filter of its own -> products (parallel) -> write
+    // (serial). The products and compression join the last parallel run.
+    auto read = [&](tbb::flow_control& fc) -> Token* {
+      if (next >= n) {
+        fc.stop();
+        return nullptr;
+      }
+      Token* t = nullptr;
+      free_tokens.pop(t);
+      FrameState& f = t->frame;
+      f.output_index = next;
+      f.source_index = summary.frames[next];
+      f.kind = Kind::hologram;
+      f.planes = 0;
+      f.distance = 0;
+      f.focus = 0;
+      f.focus_valid = false;
+      for (auto& r : f.table_rows) r.clear();
+      for (auto& r : f.records) std::fill(r.begin(), r.end(), std::numeric_limits<double>::quiet_NaN());
+      try {
+        source->read_raw(static_cast<std::size_t>(f.source_index), t->raw.data());
+      } catch (const Error& e) {
+        throw add_frame(e, f.source_index);
+      }
+      ++next;
+      return t;
+    };
+    auto run_stages = [&](std::size_t first, std::size_t last, bool convert, bool products) {
+      return [&, first, last, convert, products](Token* t) -> Token* {
+        Workspaces& ws = workspaces.local();
+        try {
+          if (convert) io::FrameSource::convert_raw(source->dtype(), t->raw.data(), t->frame.hologram.view());
+          for (std::size_t i = first; i < last; ++i) {
+            pl.stages[i]->process(t->frame, ws[i].get());
+            t->frame.kind = pl.stages[i]->produces();
+          }
+          if (products) out.compute(t->frame, t->products);
+        } catch (const Error& e) {
+          throw add_frame(e, t->frame.source_index);
+        }
+        return t;
+      };
+    };
+    auto write = [&](Token* t) {
+      try {
+        out.write(t->frame, t->products);
+      } catch (const Error& e) {
+        throw add_frame(e, t->frame.source_index);
+      }
+      free_tokens.push(t);
+      ++written;
+      if (progress) {
+        double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+        double fps = written / std::max(s, 1e-9);
+        std::fprintf(stderr, "\r  %zu/%zu frames, %.1f frames/s, %.0f s left   ", written, n, fps,
+                     (n - written) / std::max(fps, 1e-9));
+        if (written == n) std::fprintf(stderr, "\n");
+      }
+    };
+
+    tbb::filter<void, Token*> chain = tbb::make_filter<void, Token*>(tbb::filter_mode::serial_in_order, read);
+    const std::size_t ns = pl.stages.size();
+    std::size_t begin = 0;
+    bool converted = false;
+    for (std::size_t i = 0; i <= ns; ++i) {
+      const bool seq = i < ns && pl.stages[i]->sequential();
+      if (!seq && i < ns) continue;
+      // Stages [begin, i) run in parallel; stage i (if any) alone, in order.
+      if (i > begin || !converted || i == ns)
+        chain = chain & tbb::make_filter<Token*, Token*>(tbb::filter_mode::parallel,
+                                                         run_stages(begin, i, !converted, i == ns));
+      converted = true;
+      if (seq)
+        chain = chain & tbb::make_filter<Token*, Token*>(tbb::filter_mode::serial_in_order,
+                                                         run_stages(i, i + 1, false, false));
+      begin = i + 1;
+    }
+    for (auto& st : pl.stages) st->reset();
+    tbb::parallel_pipeline(static_cast<std::size_t>(tokens),
+                           chain & tbb::make_filter<Token*, void>(tbb::filter_mode::serial_in_order, write));
 
     out.finish();
     RunReport r;
@@ -336,6 +384,7 @@ struct Engine::Impl {
     r.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     r.output = pl.output.path;
     r.previews = out.previews();
+    r.tables = out.csv_files();
     return r;
   }
 };

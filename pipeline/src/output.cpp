@@ -5,7 +5,10 @@
 #include "wavestack/core/units.hpp"
 #include "wavestack/render/preview.hpp"
 
+#include <cerrno>
 #include <cmath>
+#include <cstring>
+#include <limits>
 #include <cstdio>
 #include <filesystem>
 #include <numbers>
@@ -24,6 +27,14 @@ bool has(const std::vector<std::string>& v, const char* s) {
 std::string preview_folder(const std::string& output_path) {
   fs::path p(output_path);
   return (p.parent_path() / (p.stem().string() + "_previews")).string();
+}
+
+std::string table_csv_path(const std::string& output_path, const std::string& table) {
+  fs::path p(output_path);
+  std::string t = table;
+  for (char& c : t)
+    if (c == '/') c = '_';
+  return (p.parent_path() / (p.stem().string() + "_" + t + ".csv")).string();
 }
 
 OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
@@ -61,14 +72,29 @@ OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
   const Shape& s = plan.output;
   const bool unwrapped = s.kind == Kind::phase;
   const std::int64_t wrapped = unwrapped ? 0 : 1;
-  if (field_) h_field_ = sink_.add_image("field", io::ImageType::complex64, s.height, s.width, "1", s.grid, true);
-  if (amplitude_) h_amplitude_ = sink_.add_image("amplitude", io::ImageType::f32, s.height, s.width, "1", s.grid, true);
-  if (phase_)
-    h_phase_ = sink_.add_image("phase", io::ImageType::f32, s.height, s.width, "rad", s.grid, true,
-                               {{"wrapped", wrapped}});
-  if (opd_)
-    h_opd_ = sink_.add_image("opd", io::ImageType::f32, s.height, s.width, "nm", s.grid, true,
-                             {{"wrapped", wrapped}});
+  // `plane` only when every frame has the same one (DESIGN.md); a z-stack
+  // has its planes in /focus/planes instead.
+  const bool plane = !s.plane_varies && s.planes == 0;
+  auto image = [&](const char* name, io::ImageType type, const char* units, const io::Attributes& extra) {
+    return sink_.add_stack(name, type, s.planes, s.height, s.width, units, s.grid, plane, extra);
+  };
+  if (field_) h_field_ = image("field", io::ImageType::complex64, "1", {});
+  if (amplitude_) h_amplitude_ = image("amplitude", io::ImageType::f32, "1", {});
+  if (phase_) h_phase_ = image("phase", io::ImageType::f32, "rad", {{"wrapped", wrapped}});
+  if (opd_) h_opd_ = image("opd", io::ImageType::f32, "nm", {{"wrapped", wrapped}});
+  // What the stages record per frame, and what they know once.
+  for (const RecordSpec& r : plan.records) {
+    io::Attributes extra;
+    for (const auto& [k, v] : r.attributes) extra.push_back({k, v});
+    h_records_.push_back(r.columns ? sink_.add_matrix(r.name, io::ValueType::f64, plan.frames.size(), r.columns,
+                                                      r.units, extra)
+                                   : sink_.add_vector(r.name, io::ValueType::f64, plan.frames.size(), r.units, extra));
+  }
+  for (const ConstantSpec& c : plan.constants) {
+    auto h = sink_.add_vector(c.name, io::ValueType::f64, c.values.size(), c.units);
+    sink_.write_all(h, c.values.data(), c.values.size());
+  }
+  table_values_.resize(plan.tables.size());
   // What the run was, in attributes a reader's script can use directly.
   const Instrument& ins = pl.instrument;
   sink_.set_attribute("/", "wavelength", ins.wavelength);
@@ -100,9 +126,10 @@ OutputFile::~OutputFile() {
 
 void OutputFile::size_products(Products& p) const {
   const Shape& s = plan_.output;
-  if (amplitude_ || pl_.output.preview_every >= 0) p.amplitude.resize(s.height, s.width);
-  if (phase_ || opd_ || pl_.output.preview_every >= 0) p.phase.resize(s.height, s.width);
-  if (opd_) p.opd.resize(s.height, s.width);
+  const std::size_t rows = s.height * std::max<std::size_t>(s.planes, 1);
+  if (amplitude_ || pl_.output.preview_every >= 0) p.amplitude.resize(rows, s.width);
+  if (phase_ || opd_ || pl_.output.preview_every >= 0) p.phase.resize(rows, s.width);
+  if (opd_) p.opd.resize(rows, s.width);
 }
 
 bool OutputFile::wants_preview(std::size_t i) const {
@@ -141,20 +168,23 @@ void OutputFile::render_previews(const FrameState& f, Products& p) const {
   std::snprintf(stem, sizeof stem, "frame%05lld_", static_cast<long long>(f.source_index));
   const double pitch = f.field.grid.dx;
   std::vector<std::string> made;
+  // A z-stack previews its first plane.
+  const std::size_t h = plan_.output.height, w = plan_.output.width;
+  const std::string where = f.planes ? ", plane 1 of " + std::to_string(f.planes) : "";
   {
     render::PreviewOptions o;
-    o.title = "amplitude, frame " + std::to_string(f.source_index) + ", z = " + format_length(f.field.grid.plane);
+    o.title = "amplitude, frame " + std::to_string(f.source_index) + ", z = " + format_length(f.field.grid.plane) + where;
     o.units = "a.u.";
     o.colormap = render::Colormap::viridis;
     o.pixel_pitch_m = pitch;
     const std::string path = (fs::path(preview_dir_) / (std::string(stem) + "amplitude.png")).string();
-    render::write_preview(path, p.amplitude.view(), o);
+    render::write_preview(path, p.amplitude.view().sub(0, 0, h, w), o);
     made.push_back(path);
   }
   {
     render::PreviewOptions o;
     const bool wrapped = f.kind != Kind::phase;
-    o.title = std::string(wrapped ? "wrapped phase" : "phase") + ", frame " + std::to_string(f.source_index);
+    o.title = std::string(wrapped ? "wrapped phase" : "phase") + ", frame " + std::to_string(f.source_index) + where;
     o.units = "rad";
     o.colormap = wrapped ? render::Colormap::twilight : render::Colormap::viridis;
     if (wrapped) {
@@ -162,9 +192,10 @@ void OutputFile::render_previews(const FrameState& f, Products& p) const {
     }
     o.pixel_pitch_m = pitch;
     const std::string path = (fs::path(preview_dir_) / (std::string(stem) + "phase.png")).string();
-    render::write_preview(path, p.phase.view(), o);
+    render::write_preview(path, p.phase.view().sub(0, 0, h, w), o);
     made.push_back(path);
   }
+  for (const auto& st : pl_.stages) st->preview(f, preview_dir_, made);
   std::lock_guard lock(preview_mutex_);
   previews_.insert(previews_.end(), made.begin(), made.end());
 }
@@ -182,11 +213,58 @@ void OutputFile::write(const FrameState& f, Products& p) {
     if (phase_) sink_.write_frame(h_phase_, i, p.phase.view());
     if (opd_) sink_.write_frame(h_opd_, i, p.opd.view());
   }
-  sink_.set_focus_distance(i, f.field.grid.plane);
+  for (std::size_t k = 0; k < h_records_.size(); ++k) {
+    const auto& v = f.records[k];
+    if (plan_.records[k].columns) sink_.write_row(h_records_[k], i, v.data(), v.size());
+    else sink_.write_value(h_records_[k], i, v[0]);
+  }
+  for (std::size_t k = 0; k < table_values_.size(); ++k) {
+    const std::size_t cols = plan_.tables[k].columns.size();
+    const auto& rows = f.table_rows[k];
+    for (std::size_t r = 0; r + cols <= rows.size(); r += cols) {
+      table_values_[k].push_back(static_cast<double>(f.source_index));
+      table_values_[k].insert(table_values_[k].end(), rows.begin() + static_cast<long>(r),
+                              rows.begin() + static_cast<long>(r + cols));
+    }
+  }
+  sink_.set_focus_distance(i, f.planes ? std::numeric_limits<double>::quiet_NaN() : f.field.grid.plane);
   sink_.mark_done(i, f.source_index);
 }
 
+namespace {
+// CSV beside the HDF5 file, for spreadsheets and scripts that do not read
+// HDF5; written under a temporary name and renamed like the HDF5 file.
+void write_csv(const std::string& path, const TableSpec& t, const std::vector<double>& values) {
+  const std::string tmp = path + ".partial";
+  std::FILE* f = std::fopen(tmp.c_str(), "w");
+  if (!f) fail_output("cannot write the table: " + std::string(std::strerror(errno)), in_file(tmp));
+  std::fprintf(f, "frame");
+  for (std::size_t c = 0; c < t.columns.size(); ++c)
+    std::fprintf(f, ",%s%s%s%s", t.columns[c].c_str(), t.units[c].empty() || t.units[c] == "1" ? "" : " (",
+                 t.units[c] == "1" ? "" : t.units[c].c_str(), t.units[c].empty() || t.units[c] == "1" ? "" : ")");
+  std::fprintf(f, "\n");
+  const std::size_t cols = t.columns.size() + 1;
+  for (std::size_t r = 0; r + cols <= values.size(); r += cols) {
+    for (std::size_t c = 0; c < cols; ++c) {
+      const double v = values[r + c];
+      const bool integer = c == 0 || t.integer[c - 1];
+      if (integer) std::fprintf(f, "%s%lld", c ? "," : "", static_cast<long long>(std::llround(v)));
+      else std::fprintf(f, "%s%.9g", c ? "," : "", v);
+    }
+    std::fprintf(f, "\n");
+  }
+  if (std::fclose(f) != 0 || std::rename(tmp.c_str(), path.c_str()) != 0)
+    fail_output("cannot write the table: " + std::string(std::strerror(errno)), in_file(path));
+}
+} // namespace
+
 void OutputFile::finish() {
+  for (std::size_t k = 0; k < table_values_.size(); ++k) {
+    const TableSpec& t = plan_.tables[k];
+    std::vector<io::FrameSink::TableColumn> cols{{"frame", true, "1"}};
+    for (std::size_t c = 0; c < t.columns.size(); ++c) cols.push_back({t.columns[c], t.integer[c], t.units[c]});
+    sink_.write_table(t.name, cols, table_values_[k]);
+  }
   const auto warnings = log::warnings();
   if (!warnings.empty()) {
     std::string all;
@@ -194,6 +272,11 @@ void OutputFile::finish() {
     sink_.set_attribute("/", "warnings", all);
   }
   sink_.finish();
+  for (std::size_t k = 0; k < table_values_.size(); ++k) {
+    const std::string csv = table_csv_path(pl_.output.path, plan_.tables[k].name);
+    write_csv(csv, plan_.tables[k], table_values_[k]);
+    csv_written_.push_back(csv);
+  }
   finished_ = true;
 }
 

@@ -33,6 +33,8 @@ public:
   void finish();
   /// PNGs written so far.
   std::vector<std::string> previews() const;
+  /// CSV files written by finish().
+  const std::vector<std::string>& csv_files() const { return csv_written_; }
 
 private:
   bool wants_preview(std::size_t output_index) const;
@@ -41,6 +43,9 @@ private:
   const Pipeline& pl_;
   const PlanSummary& plan_;
   io::FrameSink sink_;
+  std::vector<io::FrameSink::Product> h_records_;
+  std::vector<std::vector<double>> table_values_; ///< collected rows per table (frame column first)
+  std::vector<std::string> csv_written_;
   bool field_ = false, amplitude_ = false, phase_ = false, opd_ = false;
   io::FrameSink::Product h_field_ = 0, h_amplitude_ = 0, h_phase_ = 0, h_opd_ = 0;
   bool compress_ = false;
@@ -53,5 +58,7 @@ private:
 /// The folder that receives the PNG previews of an output file:
 /// "out/reconstruction.h5" -> "out/reconstruction_previews".
 std::string preview_folder(const std::string& output_path);
+/// The CSV file of a table: "out/rec.h5", "focus/objects" -> "out/rec_focus_objects.csv".
+std::string table_csv_path(const std::string& output_path, const std::string& table);
 
 } // namespace wavestack::pipeline

@@ -61,7 +61,8 @@ struct ProductInfo {
   bool image = false;
   ImageType itype = ImageType::f32;
   ValueType vtype = ValueType::f64;
-  std::size_t rows = 0, cols = 0; ///< image: h, w; matrix: rows, cols; vector: length, 0
+  std::size_t rows = 0, cols = 0; ///< image: h (Z·h for a z-stack), w; matrix: rows, cols; vector: length, 0
+  std::size_t planes = 0;         ///< z-stack image (N,Z,h,w): Z; 0 for (N,h,w)
   std::size_t elem_size = 0;
   Hid dset, file_space, mem_space;
   std::size_t mem_stride = 0;
@@ -206,8 +207,9 @@ struct FrameSink::Impl {
       p.mem_space = std::move(ms);
       p.mem_stride = stride;
     }
-    const hsize_t start[3] = {frame, 0, 0}, cnt[3] = {1, h, w};
-    if (H5Sselect_hyperslab(p.file_space.get(), H5S_SELECT_SET, start, nullptr, cnt, nullptr) < 0 ||
+    const hsize_t start[4] = {frame, 0, 0, 0};
+    const hsize_t cnt3[3] = {1, h, w}, cnt4[4] = {1, p.planes, p.planes ? h / p.planes : h, w};
+    if (H5Sselect_hyperslab(p.file_space.get(), H5S_SELECT_SET, start, nullptr, p.planes ? cnt4 : cnt3, nullptr) < 0 ||
         H5Dwrite(p.dset.get(), complex ? complex_mem.get() : H5T_NATIVE_FLOAT, p.mem_space.get(), p.file_space.get(),
                  H5P_DEFAULT, data) < 0)
       fail_hdf5(ErrorKind::output, "could not write the frame", c);
@@ -329,16 +331,18 @@ FrameSink FrameSink::open_for_resume(const std::string& path) {
   for (const auto& d : detail::list_datasets(m->file.get(), std::numeric_limits<std::size_t>::max())) {
     ProductInfo p;
     p.name = d.path;
-    Hid dset = dataset_hid(H5Dopen2(m->file.get(), d.path.c_str(), d.shape.size() == 3 ? dapl.get() : H5P_DEFAULT));
+    const bool img = d.shape.size() == 3 || d.shape.size() == 4;
+    Hid dset = dataset_hid(H5Dopen2(m->file.get(), d.path.c_str(), img ? dapl.get() : H5P_DEFAULT));
     Hid type = type_hid(dset ? H5Dget_type(dset.get()) : H5I_INVALID_HID);
     if (!dset || !type) fail_hdf5(ErrorKind::output, "cannot resume: cannot open " + d.path, c);
     const H5T_class_t cls = H5Tget_class(type.get());
     const std::size_t size = H5Tget_size(type.get());
-    if (d.shape.size() == 3) {
+    if (img && (d.shape.size() == 3 || cls != H5T_COMPOUND || size == 8)) {
       p.image = true;
       p.itype = cls == H5T_COMPOUND ? ImageType::complex64 : ImageType::f32;
-      p.rows = d.shape[1];
-      p.cols = d.shape[2];
+      p.planes = d.shape.size() == 4 ? d.shape[1] : 0;
+      p.rows = d.shape.size() == 4 ? d.shape[1] * d.shape[2] : d.shape[1];
+      p.cols = d.shape.back();
       p.elem_size = p.itype == ImageType::complex64 ? 8 : 4;
     } else if (d.shape.size() == 1 || d.shape.size() == 2) {
       p.rows = d.shape[0];
@@ -385,6 +389,12 @@ FrameSink FrameSink::open_for_resume(const std::string& path) {
 FrameSink::Product FrameSink::add_image(const std::string& name_in, ImageType type, std::size_t height,
                                         std::size_t width, const std::string& units, const Grid& grid,
                                         bool record_plane, const Attributes& extra) {
+  return add_stack(name_in, type, 0, height, width, units, grid, record_plane, extra);
+}
+
+FrameSink::Product FrameSink::add_stack(const std::string& name_in, ImageType type, std::size_t planes,
+                                        std::size_t height, std::size_t width, const std::string& units,
+                                        const Grid& grid, bool record_plane, const Attributes& extra) {
   Lock lock;
   Impl& m = *impl_;
   const std::string name = absolute_path(name_in);
@@ -395,11 +405,13 @@ FrameSink::Product FrameSink::add_image(const std::string& name_in, ImageType ty
   create_parent_groups(m.file.get(), name, ErrorKind::output, c);
 
   const bool complex = type == ImageType::complex64;
-  const hsize_t dims[3] = {m.n, height, width};
-  const hsize_t chunk[3] = {1, height, width};
-  Hid space = space_hid(H5Screate_simple(3, dims, nullptr));
+  // One chunk is one frame: (1,h,w), or (1,Z,h,w) for a z-stack.
+  const int rank = planes ? 4 : 3;
+  const hsize_t dims3[3] = {m.n, height, width}, chunk3[3] = {1, height, width};
+  const hsize_t dims4[4] = {m.n, planes, height, width}, chunk4[4] = {1, planes, height, width};
+  Hid space = space_hid(H5Screate_simple(rank, planes ? dims4 : dims3, nullptr));
   Hid dcpl = plist_hid(H5Pcreate(H5P_DATASET_CREATE));
-  if (!space || !dcpl || H5Pset_chunk(dcpl.get(), 3, chunk) < 0)
+  if (!space || !dcpl || H5Pset_chunk(dcpl.get(), rank, planes ? chunk4 : chunk3) < 0)
     fail_hdf5(ErrorKind::output, "could not prepare the dataset", c);
   const float nan = std::numeric_limits<float>::quiet_NaN();
   const float nan2[2] = {nan, nan};
@@ -414,7 +426,8 @@ FrameSink::Product FrameSink::add_image(const std::string& name_in, ImageType ty
   p.name = name;
   p.image = true;
   p.itype = type;
-  p.rows = height;
+  p.planes = planes;
+  p.rows = planes ? planes * height : height;
   p.cols = width;
   p.elem_size = complex ? 2 * sizeof(float) : sizeof(float);
   p.dset = dataset_hid(H5Dcreate2(m.file.get(), name.c_str(), complex ? m.complex_file.get() : H5T_IEEE_F32LE,
@@ -529,10 +542,56 @@ void FrameSink::write_frame_compressed(Product id, std::size_t frame, const unsi
   if (frame >= m.n) fail_internal("FrameSink: frame " + std::to_string(frame) + " beyond " + std::to_string(m.n), c);
   if (size == 0 || size > std::numeric_limits<std::uint32_t>::max())
     fail_internal("FrameSink: compressed chunk of " + std::to_string(size) + " bytes", c);
-  const hsize_t offset[3] = {frame, 0, 0};
+  const hsize_t offset[4] = {frame, 0, 0, 0};
   // Filter mask 0: every filter of the pipeline (shuffle, deflate) was applied.
   if (H5Dwrite_chunk(p.dset.get(), H5P_DEFAULT, 0, offset, size, bytes) < 0)
     fail_hdf5(ErrorKind::output, "could not write the compressed frame", c);
+}
+
+void FrameSink::write_table(const std::string& name_in, const std::vector<TableColumn>& columns,
+                            const std::vector<double>& values) {
+  Lock lock;
+  Impl& m = *impl_;
+  const std::string name = absolute_path(name_in);
+  const ErrorContext c = m.ctx(name);
+  if (columns.empty()) fail_internal("FrameSink: table " + name + " without columns", c);
+  if (values.size() % columns.size() != 0)
+    fail_internal("FrameSink: table " + name + " values are not whole rows", c);
+  const std::size_t rows = values.size() / columns.size();
+  create_parent_groups(m.file.get(), name, ErrorKind::output, c);
+  // Every field is 8 bytes: float64 or int64, packed in column order.
+  const std::size_t rec = 8 * columns.size();
+  Hid mem = type_hid(H5Tcreate(H5T_COMPOUND, rec));
+  Hid filet = type_hid(H5Tcreate(H5T_COMPOUND, rec));
+  if (!mem || !filet) fail_hdf5(ErrorKind::output, "could not make the table type", c);
+  for (std::size_t k = 0; k < columns.size(); ++k) {
+    const bool integer = columns[k].integer;
+    if (H5Tinsert(mem.get(), columns[k].name.c_str(), 8 * k, integer ? H5T_NATIVE_INT64 : H5T_NATIVE_DOUBLE) < 0 ||
+        H5Tinsert(filet.get(), columns[k].name.c_str(), 8 * k, integer ? H5T_STD_I64LE : H5T_IEEE_F64LE) < 0)
+      fail_hdf5(ErrorKind::output, "could not add the column " + columns[k].name, c);
+  }
+  std::vector<unsigned char> buf(std::max<std::size_t>(rows, 1) * rec);
+  for (std::size_t r = 0; r < rows; ++r)
+    for (std::size_t k = 0; k < columns.size(); ++k) {
+      const double v = values[r * columns.size() + k];
+      unsigned char* dst = buf.data() + r * rec + 8 * k;
+      if (columns[k].integer) {
+        const std::int64_t i = std::isfinite(v) ? static_cast<std::int64_t>(std::llround(v)) : -1;
+        std::memcpy(dst, &i, 8);
+      } else {
+        std::memcpy(dst, &v, 8);
+      }
+    }
+  const hsize_t dims = rows;
+  Hid space = space_hid(H5Screate_simple(1, &dims, nullptr));
+  Hid dset = dataset_hid(
+      H5Dcreate2(m.file.get(), name.c_str(), filet.get(), space.get(), H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT));
+  if (!space || !dset) fail_hdf5(ErrorKind::output, "could not create the table", c);
+  if (rows && H5Dwrite(dset.get(), mem.get(), H5S_ALL, H5S_ALL, H5P_DEFAULT, buf.data()) < 0)
+    fail_hdf5(ErrorKind::output, "could not write the table", c);
+  std::string units;
+  for (std::size_t k = 0; k < columns.size(); ++k) units += (k ? "," : "") + columns[k].units;
+  write_attribute(dset.get(), "units", units, ErrorKind::output, c);
 }
 
 void FrameSink::write_value(Product p, std::size_t index, double value) {

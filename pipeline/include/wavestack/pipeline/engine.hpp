@@ -23,6 +23,9 @@ struct PlanSummary {
   std::vector<Shape> shapes;            ///< output shape of each stage
   Shape output;                         ///< shape written to the file
   Notes notes;                          ///< what the stages decided (carrier, radius, ...)
+  std::vector<RecordSpec> records;      ///< per-frame values of all stages, in slot order
+  std::vector<TableSpec> tables;        ///< per-object tables of all stages, in slot order
+  std::vector<ConstantSpec> constants;  ///< datasets written once
 };
 
 struct RunSettings {
@@ -37,6 +40,7 @@ struct RunReport {
   double seconds = 0;
   std::string output;
   std::vector<std::string> previews;
+  std::vector<std::string> tables; ///< CSV files beside the output
 };
 
 class Engine {

@@ -15,6 +15,8 @@
 #include <optional>
 #include <string>
 #include <string_view>
+#include <utility>
+#include <vector>
 
 namespace wavestack::pipeline {
 
@@ -52,16 +54,55 @@ struct FrameState {
   std::size_t output_index = 0;   ///< index in the output file
   Kind kind = Kind::hologram;
   Image<float> hologram;          ///< kind == hologram
-  Field field;                    ///< kind >= field
-  Image<float> phase;             ///< kind == phase: unwrapped phase (rad)
-  double distance = 0;            ///< reconstruction distance of this frame (m)
+  /// kind >= field. For a z-stack (planes > 0) the planes lie one below the
+  /// other: field.data is (planes·h)×w and field.grid.plane is the first plane.
+  Field field;
+  std::size_t planes = 0;
+  Image<float> phase;             ///< kind == phase: unwrapped phase (rad), same layout as field
+  double distance = 0;            ///< reconstruction distance of this frame (m); NaN for a z-stack
+  /// Values the stages record for this frame, one vector per declared
+  /// RecordSpec (sized at plan time), and per-object rows for each declared
+  /// TableSpec (flattened rows, cleared for every frame).
+  std::vector<std::vector<double>> records;
+  std::vector<std::vector<double>> table_rows;
+  /// Focus found by an autofocus stage for this frame (m); NaN when unsure.
+  double focus = 0;
+  bool focus_valid = false;
+};
+
+/// A per-frame value (columns == 0) or row (columns > 0) that a stage writes
+/// into the output file as a dataset of shape (N) or (N, columns).
+struct RecordSpec {
+  std::string name;       ///< dataset path, e.g. "focus/confidence"
+  std::size_t columns = 0;
+  std::string units;
+  std::vector<std::pair<std::string, std::string>> attributes; ///< string attributes
+};
+
+/// A table of per-object rows (e.g. focus or dry mass per object), written
+/// as a compound dataset and a CSV file beside the output. The engine adds a
+/// first column "frame" (the source frame index).
+struct TableSpec {
+  std::string name;                 ///< dataset path, e.g. "focus/objects"
+  std::vector<std::string> columns; ///< column names
+  std::vector<bool> integer;        ///< per column: int64 instead of float64
+  std::vector<std::string> units;   ///< per column
+};
+
+/// A dataset written once, e.g. the distances of a focus sweep.
+struct ConstantSpec {
+  std::string name;
+  std::vector<double> values;
+  std::string units;
 };
 
 /// What planning knows about the data at one point of the chain.
 struct Shape {
   Kind kind = Kind::hologram;
-  std::size_t height = 0, width = 0;
+  std::size_t height = 0, width = 0; ///< of one plane
+  std::size_t planes = 0;            ///< > 0 for a z-stack
   Grid grid;
+  bool plane_varies = false;         ///< the reconstruction distance differs per frame
 };
 
 /// Read-only facts a stage may use while planning.
@@ -78,6 +119,10 @@ public:
   virtual const Image<float>& probe_hologram() = 0;
   /// The raw object-free background hologram, or nullptr.
   virtual const Image<float>* background() = 0;
+  /// The background carried through the stages before the caller (e.g. its
+  /// reconstructed field, to divide out as a reference), or nullptr when
+  /// there is no background or in a dry run.
+  virtual const FrameState* background_state() = 0;
 };
 
 /// Per-thread scratch memory of one stage.
@@ -102,6 +147,31 @@ public:
   virtual Notes notes() const { return {}; }
   /// The reconstruction distance this stage adds (propagate), if fixed.
   virtual std::optional<double> fixed_distance() const { return std::nullopt; }
+
+  /// What this stage writes besides the image products (declared after plan()).
+  virtual std::vector<RecordSpec> records() const { return {}; }
+  virtual std::vector<TableSpec> tables() const { return {}; }
+  virtual std::vector<ConstantSpec> constants() const { return {}; }
+  /// True when frames must pass this stage one at a time, in order (e.g.
+  /// focus tracking, which starts from the previous frame's result). The
+  /// engine then gives it a serial filter of its own; the stage may still
+  /// use parallelism inside one frame.
+  virtual bool sequential() const { return false; }
+  /// Called once before the first frame of a run (a tracking stage forgets
+  /// what the planning probes taught it).
+  virtual void reset() {}
+  /// Extra PNG previews of a frame (e.g. a focus curve); append the paths.
+  virtual void preview(const FrameState&, const std::string& folder, std::vector<std::string>& written) const {
+    (void)folder;
+    (void)written;
+  }
+
+  /// Slots of this stage's records and tables in FrameState (set by the engine).
+  std::size_t record_base = 0, table_base = 0;
+
+protected:
+  std::vector<double>& record(FrameState& f, std::size_t i) const { return f.records[record_base + i]; }
+  std::vector<double>& table(FrameState& f, std::size_t i) const { return f.table_rows[table_base + i]; }
 };
 
 } // namespace wavestack::pipeline

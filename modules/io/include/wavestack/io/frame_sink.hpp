@@ -121,6 +121,26 @@ public:
                     const std::string& units, const Grid& grid, bool record_plane,
                     const Attributes& extra = {});
 
+  /// Declare a z-stack image product: dataset (N,planes,height,width),
+  /// chunk (1,planes,height,width), same attributes as add_image. A frame is
+  /// written from a (planes·height)×width image holding the planes one
+  /// below the other.
+  Product add_stack(const std::string& name, ImageType type, std::size_t planes, std::size_t height,
+                    std::size_t width, const std::string& units, const Grid& grid, bool record_plane,
+                    const Attributes& extra = {});
+
+  /// A table written once (e.g. per-object results collected over the run):
+  /// a compound dataset of `rows` records with one float64 or int64 field
+  /// per column, plus a `units` attribute listing the units of every column
+  /// (comma-separated, in column order). h5py reads it as a structured array.
+  struct TableColumn {
+    std::string name;
+    bool integer = false; ///< int64 instead of float64
+    std::string units;
+  };
+  void write_table(const std::string& name, const std::vector<TableColumn>& columns,
+                   const std::vector<double>& values /* rows × columns, row-major */);
+
   /// Declare a 1-D dataset (length) or 2-D dataset (rows, cols) with a units
   /// attribute; parent groups are created as needed. Unwritten values are
   /// NaN for float types and 0 for integer types.
