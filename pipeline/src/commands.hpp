@@ -22,7 +22,17 @@ struct DemoArgs {
   bool quiet = false;
 };
 
+struct RefocusArgs {
+  std::string input, profile, distance, planes, output, background, frames;
+  std::string order = "auto", method = "auto";
+  int threads = 0;
+  bool quiet = false, print = false;
+};
+
 int cmd_run(const RunArgs& a);
+int cmd_refocus(const RefocusArgs& a);
+/// The pipeline text `refocus` runs (for --print and tests).
+std::string refocus_pipeline_text(const RefocusArgs& a);
 int cmd_check(const CheckArgs& a);
 int cmd_inspect(const std::string& target);
 int cmd_demo(const DemoArgs& a);

@@ -313,6 +313,7 @@ struct Engine::Impl {
       f.planes = 0;
       f.distance = 0;
       f.focus = 0;
+      f.focus_plane = 0;
       f.focus_valid = false;
       for (auto& r : f.table_rows) r.clear();
       for (auto& r : f.records) std::fill(r.begin(), r.end(), std::numeric_limits<double>::quiet_NaN());

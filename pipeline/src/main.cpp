@@ -31,6 +31,23 @@ int main(int argc, char** argv) {
   run_cmd->add_flag("--resume", run.resume, "continue a partial output left by a killed run");
   run_cmd->add_flag("-q,--quiet", run.quiet, "print only warnings and errors");
 
+  RefocusArgs rf;
+  auto* rf_cmd = app.add_subcommand("refocus", "reconstruct and refocus a hologram stack in one line, no pipeline file");
+  rf_cmd->add_option("input", rf.input, "FILE.h5 or FILE.h5:/dataset (default dataset /holograms)")->required();
+  rf_cmd->add_option("--profile", rf.profile, "instrument profile (TOML), e.g. calibration/demo-40x-0.75na.toml")
+      ->required();
+  rf_cmd->add_option("--distance", rf.distance, "one refocus distance, e.g. \"-8 um\"");
+  rf_cmd->add_option("--planes", rf.planes, "a stack: FROM:TO:STEP (\"-20 um:20 um:1 um\") or a list (\"-5 um,0 um\")");
+  rf_cmd->add_option("-o,--output", rf.output, "output HDF5 file (default: INPUT_refocused.h5)");
+  rf_cmd->add_option("--background", rf.background, "object-free hologram FILE.h5[:/dataset]");
+  rf_cmd->add_option("--frames", rf.frames, "frame selection start:stop[:step]");
+  rf_cmd->add_option("--order", rf.order, "sideband order: auto, +1 or -1")->check(CLI::IsMember({"auto", "+1", "-1"}));
+  rf_cmd->add_option("--method", rf.method, "auto, angular-spectrum, fresnel or fresnel-single-fft")
+      ->check(CLI::IsMember({"auto", "angular-spectrum", "fresnel", "fresnel-single-fft"}));
+  rf_cmd->add_option("--threads", rf.threads, "worker threads (default: all cores)")->check(CLI::PositiveNumber);
+  rf_cmd->add_flag("--print", rf.print, "print the equivalent pipeline file and stop");
+  rf_cmd->add_flag("-q,--quiet", rf.quiet, "print only warnings and errors");
+
   CheckArgs check;
   auto* check_cmd = app.add_subcommand("check", "validate a pipeline file and show the planned shapes; reads no frames");
   check_cmd->add_option("pipeline", check.pipeline, "pipeline file (TOML)")->required();
@@ -56,6 +73,7 @@ int main(int argc, char** argv) {
   try {
     if (*run_cmd) return cmd_run(run);
     if (*check_cmd) return cmd_check(check);
+    if (*rf_cmd) return cmd_refocus(rf);
     if (*inspect_cmd) return cmd_inspect(inspect_target);
     if (*demo_cmd) return cmd_demo(demo);
   } catch (const std::exception& e) {

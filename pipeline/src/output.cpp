@@ -227,7 +227,12 @@ void OutputFile::write(const FrameState& f, Products& p) {
                               rows.begin() + static_cast<long>(r + cols));
     }
   }
-  sink_.set_focus_distance(i, f.planes ? std::numeric_limits<double>::quiet_NaN() : f.field.grid.plane);
+  // With autofocus, /focus/distance is the focus found (DESIGN.md), NaN when
+  // unsure; a z-stack has no single plane.
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  sink_.set_focus_distance(i, plan_.output.focus_available ? (f.focus_valid ? f.focus_plane : nan)
+                              : f.planes                  ? nan
+                                                          : f.field.grid.plane);
   sink_.mark_done(i, f.source_index);
 }
 

@@ -17,7 +17,7 @@ std::string_view kind_name(Kind k) {
 
 namespace {
 // One line per stage: type, summary, keys (with defaults), factory.
-const std::array<StageInfo, 3> registry{{
+const std::array<StageInfo, 8> registry{{
     {"fringe", "condition the hologram: background normalisation, DC suppression, apodization",
      "dc = \"mean\" | \"local\" | \"none\" (mean); apodize = \"none\" | \"tukey\" (none); "
      "tukey_fraction = 0..1 (0.1); local_window = pixels (auto)",
@@ -27,9 +27,32 @@ const std::array<StageInfo, 3> registry{{
      "(auto: NA/wavelength, else 1/3); soft_edge = fraction of the radius (0.1)",
      stages::make_sideband},
     {"propagate", "refocus the field by the angular spectrum method (band-limited, zero-padded)",
-     "distance = \"<length>\"; padding = \"auto\" | \"none\" | factor (auto = 2); "
-     "method = \"angular-spectrum\"",
+     "distance = \"<length>\"; padding = \"auto\" | \"none\" | factor; "
+     "method = \"auto\" | \"angular-spectrum\" | \"fresnel\" | \"fresnel-single-fft\" (auto); "
+     "or distances = { from, to, step } / a list for a z-stack; distance = \"focus\" after autofocus",
      stages::make_propagate},
+    {"unwrap", "unwrap the phase of the field: field -> continuous phase (rad)",
+     "method = \"reliability\" | \"least-squares\" (reliability); wrap_around = \"none\" | \"x\" | \"y\" | "
+     "\"both\"; weights = \"none\" | \"amplitude\" | \"phase-variance\" (least squares); "
+     "continuity = \"first-frame\" | \"none\"; residue_warning = residues per loop (0.001)",
+     stages::make_unwrap},
+    {"autofocus", "score a sweep of planes per frame and find the sharp one (the field stays; "
+                  "propagate with distance = \"focus\" applies it)",
+     "from, to, step = \"<length>\" (required); metric = \"auto\" | \"tamura-gradient\" | ... (auto); "
+     "roi = [row, column, height, width]; track = true | false (false); window = planes (8); "
+     "objects = true | false (false); refine_levels = 0..20 (5); min_snr (12)",
+     stages::make_autofocus},
+    {"flatten", "fit and subtract the instrument's tilt and curvature over the background of the unwrapped phase",
+     "model = \"polynomial\" | \"zernike\" (polynomial); degree = 0..8 (2); terms = [ANSI indices] (zernike); "
+     "region = \"auto\" | \"all\" (auto: objects excluded per frame)",
+     stages::make_flatten},
+    {"zernike", "wavefront report of the unwrapped phase: ANSI Zernike coefficients (nm), PV, RMS, Strehl",
+     "terms = 3..231 (15); center_row, center_column, radius = pixels (default: largest inscribed circle)",
+     stages::make_zernike},
+    {"drymass", "segment objects on the OPD map; area, OPD and dry mass per object",
+     "threshold = \"robust\" | \"fixed\" | \"otsu\" (robust); threshold_opd = \"<length>\" (fixed); "
+     "sigmas (5); min_area_pixels (20); fill_holes; exclude_border; alpha = um^3/pg (0.19)",
+     stages::make_drymass},
 }};
 } // namespace
 

@@ -32,7 +32,8 @@ def expect(cond, what):
         print("FAIL:", what)
 
 
-def make_input(folder, frames=3, h=240, w=300, corrupt_frame=None):
+def make_input(folder, frames=3, h=240, w=300, corrupt_frame=None, peak=1.5, defocus=0.0, absorb=0.0,
+               objects=None):
     """Off-axis holograms of a smooth phase object (Takeda 1982 model,
     offaxis_reference.py), uint16; optionally deflate-compressed chunks with
     one chunk's bytes overwritten to make that frame unreadable."""
@@ -43,9 +44,22 @@ def make_input(folder, frames=3, h=240, w=300, corrupt_frame=None):
     refw = ref.reference_wave(h, w, dy, dx, car, 2.0)
     stack = np.empty((frames, h, w), np.uint16)
     rng = np.random.default_rng(7)
+    band = ref.pupil(h, w, dy, dx, inst.cutoff)
     for k in range(frames):
-        r2 = (yy - h * dy / 2) ** 2 + (xx - (w / 2 + 5 * k) * dx) ** 2
-        obj = np.exp(1j * 1.5 * np.exp(-r2 / (2 * (3e-6) ** 2)))
+        if objects is None:
+            r2 = (yy - h * dy / 2) ** 2 + (xx - (w / 2 + 5 * k) * dx) ** 2
+            obj = np.exp(1j * peak * np.exp(-r2 / (2 * (3e-6) ** 2)))
+        else:
+            # discs (radius 2.5 um) of phase `peak` and absorption `absorb`,
+            # each at its own depth: (row, col, depth) per object
+            obj = np.ones((h, w), np.complex128)
+            for (r, c, z) in objects:
+                disc = ((yy - r * dy) ** 2 + (xx - c * dx) ** 2 <= (2.5e-6) ** 2).astype(float)
+                one = np.exp((1j * peak - absorb) * disc)
+                one = np.fft.ifft2(np.fft.fft2(one) * band)  # objective pupil, NA/lambda0
+                obj = obj * ref.propagate(one, dy, dx, inst.wavelength, inst.medium_index, z)
+        if defocus:
+            obj = ref.propagate(obj, dy, dx, inst.wavelength, inst.medium_index, defocus)
         inten = ref.record(obj, refw)
         counts = np.clip(np.round(inten / inten.mean() * 1800 + rng.normal(0, 2, inten.shape)), 0, 4095)
         stack[k] = counts
@@ -64,7 +78,7 @@ def make_input(folder, frames=3, h=240, w=300, corrupt_frame=None):
     return path, inst, stack
 
 
-def pipeline_text(inst, out="out.h5", extra_output="", distance='"-2 um"'):
+def pipeline_text(inst, out="out.h5", extra_output="", distance='"-2 um"', extra_stage=""):
     return f"""[input]
 path = "holo.h5"
 dataset = "/holograms"
@@ -80,7 +94,7 @@ order = "+1"
 [[stage]]
 type = "propagate"
 distance = {distance}
-
+{extra_stage}
 [output]
 path = "{out}"
 products = ["field", "amplitude", "phase", "opd"]
@@ -254,12 +268,153 @@ def case_check(binary, d):
     expect(not os.path.exists(os.path.join(d, "out.h5")), "check writes nothing")
 
 
-CASES = {"layout": case_layout, "compression": case_compression, "errors": case_errors,
+def case_unwrap(binary, d):
+    # A 9 rad Gaussian phase bump (wraps once) reconstructed and unwrapped:
+    # the peak comes back continuous, and /phase says it is not wrapped.
+    # Truth: the synthesised object (offaxis_reference.py, Takeda 1982 model).
+    _, inst, _ = make_input(d, frames=2, peak=9.0)
+    p = write(d, "p.toml", pipeline_text(inst, distance='"0 um"', extra_stage='[[stage]]\ntype = "unwrap"\n'))
+    code, _, err = run(binary, "run", p, "-q")
+    expect(code == 0, f"run with unwrap ({err.strip()})")
+    with h5py.File(os.path.join(d, "out.h5")) as f:
+        expect(int(f["phase"].attrs["wrapped"]) == 0, "phase wrapped = 0 after unwrap")
+        expect(int(f["opd"].attrs["wrapped"]) == 0, "opd wrapped = 0 after unwrap")
+        expect(f["quality/residues"].shape == (2,), "quality/residues per frame")
+        for k in range(2):
+            ph = f["phase"][k]
+            border = np.median(np.concatenate([ph[:5].ravel(), ph[-5:].ravel()]))
+            peak = ph.max() - border
+            expect(abs(peak - 9.0) < 0.15, f"frame {k}: unwrapped peak {peak:.3f} rad vs 9 rad")
+            expect(np.all(np.abs(np.diff(ph, axis=1)) < 1.5), f"frame {k}: no 2pi jumps left")
+        # time-lapse continuity: both frames have the same background level
+        b0 = np.median(f["phase"][0][:5]); b1 = np.median(f["phase"][1][:5])
+        expect(abs(b0 - b1) < 0.5, f"background piston held across frames ({b0:.3f}, {b1:.3f})")
+
+
+def case_zstack(binary, d):
+    # `wavestack refocus` with a range of planes writes (N, Z, h, w) stacks
+    # and /focus/planes (DESIGN.md output file, issue: z-stacks); each plane
+    # equals a single-distance run to that plane.
+    _, inst, _ = make_input(d, frames=2)
+    prof = write(d, "inst.toml", inst.toml())
+    holo = os.path.join(d, "holo.h5")
+    out = os.path.join(d, "stack.h5")
+    code, _, err = run(binary, "refocus", holo, "--profile", prof, "--planes", "-2 um:2 um:1 um", "-o", out, "-q")
+    expect(code == 0, f"refocus --planes ({err.strip()})")
+    p = write(d, "p.toml", pipeline_text(inst, out="one.h5"))  # distance -2 um
+    code, _, err = run(binary, "run", p, "-q")
+    expect(code == 0, f"single-distance run ({err.strip()})")
+    with h5py.File(out) as f, h5py.File(os.path.join(d, "one.h5")) as g:
+        n, h, w = g["field"].shape
+        expect(f["field"].shape == (n, 5, h, w), f"stack shape {f['field'].shape}")
+        expect(f["field"].chunks == (1, 5, h, w), "one frame per chunk")
+        expect(np.allclose(f["focus/planes"][...], [-2e-6, -1e-6, 0, 1e-6, 2e-6], atol=1e-15), "focus/planes")
+        expect(f["focus/planes"].attrs["units"] == "m", "focus/planes units")
+        expect("plane" not in f["field"].attrs, "no single plane attribute on a stack")
+        expect(np.all(np.isnan(f["focus/distance"][...])), "focus/distance is NaN for a stack")
+        a, b = f["field"][:, 0], g["field"][...]
+        err_rel = np.linalg.norm(a - b) / np.linalg.norm(b)
+        expect(err_rel < 1e-6, f"plane -2 um equals the single-distance run (relative {err_rel:.2e})")
+    code, text, _ = run(binary, "refocus", holo, "--profile", prof, "--distance", "-8 um", "--print")
+    expect(code == 0 and tomllib.loads(text)["stage"][2]["distance"] == "-8 um", "refocus --print gives the pipeline")
+    code, _, err = run(binary, "refocus", holo, "--profile", prof)
+    expect(code == 2 and "--distance" in err, f"refocus without a distance exits 2: {err.strip()}")
+
+
+def case_autofocus(binary, d):
+    # Disc objects recorded 5 um beyond their focal plane: the autofocus
+    # stage must find -5 um within a tenth of the depth of field
+    # lambda0 n / NA^2 (Inoue & Spring, Video Microscopy 1997 [common
+    # practice; from memory]); propagate distance = "focus" applies it.
+    _, inst, _ = make_input(d, frames=3, h=256, w=256, peak=0.0, absorb=0.8,
+                            objects=[(128, 128, 0.0)], defocus=5e-6)
+    dof = inst.wavelength * inst.medium_index / inst.numerical_aperture ** 2
+    af = '[[stage]]\ntype = "autofocus"\nfrom = "-10 um"\nto = "0 um"\nstep = "0.5 um"\n{extra}\n'
+    results = {}
+    for name, extra in [("plain", ""), ("tracked", "track = true")]:
+        text = pipeline_text(inst, out=f"{name}.h5", distance='"focus"').replace(
+            '[[stage]]\ntype = "propagate"', af.format(extra=extra) + '[[stage]]\ntype = "propagate"')
+        p = write(d, f"{name}.toml", text)
+        code, _, err = run(binary, "run", p, "-q")
+        expect(code == 0, f"{name} autofocus run ({err.strip()})")
+        with h5py.File(os.path.join(d, f"{name}.h5")) as f:
+            z = f["focus/distance"][...]
+            expect(np.all(np.abs(z + 5e-6) < dof / 10), f"{name}: focus {z * 1e6} um vs -5 um (DOF/10 = {dof / 10 * 1e6:.2f} um)")
+            expect(f["focus/curve"].shape == (3, 21), f"{name}: focus/curve (N, S) {f['focus/curve'].shape}")
+            expect(np.allclose(f["focus/distances"][...], np.arange(21) * 0.5e-6 - 10e-6), "focus/distances")
+            expect(np.all(f["focus/confidence"][...] > 0) and np.all(f["focus/sure"][...] == 1), "sure with confidence")
+            expect("plane" not in f["field"].attrs, "no single plane attribute when the focus varies per frame")
+            results[name] = z
+    expect(np.allclose(results["plain"], results["tracked"], atol=1e-9), "tracking gives the same focus here")
+    expect(os.path.exists(os.path.join(d, "plain_previews", "frame00000_focus_curve.png")), "focus curve PNG")
+    # two objects at different depths: per-object focus finds both
+    d = os.path.join(d, "two")
+    os.makedirs(d)
+    _, inst, _ = make_input(d, frames=1, h=256, w=320, peak=1.0, absorb=0.3,
+                            objects=[(128, 80, -4e-6), (128, 240, 3e-6)], defocus=0.0)
+    text = pipeline_text(inst, out="objects.h5", distance='"0 um"').replace(
+        '[[stage]]\ntype = "propagate"', af.replace("-10 um", "-8 um").replace('"0 um"', '"8 um"').format(
+            extra="objects = true") + '[[stage]]\ntype = "propagate"')
+    p = write(d, "objects.toml", text)
+    code, _, err = run(binary, "run", p, "-q")
+    expect(code == 0, f"per-object autofocus run ({err.strip()})")
+    with h5py.File(os.path.join(d, "objects.h5")) as f:
+        t = f["focus/objects"][...]
+        expect(len(t) == 2, f"two objects found ({len(t)})")
+        if len(t) == 2:
+            order = np.argsort(t["centroid_column"])
+            # the object recorded at depth z is in focus at -z
+            found = t["distance"][order]
+            expect(abs(found[0] - 4e-6) < dof / 10 and abs(found[1] + 3e-6) < dof / 10,
+                   f"object depths {found * 1e6} um vs +4 and -3 um")
+    csv = os.path.join(d, "objects_focus_objects.csv")
+    expect(os.path.exists(csv) and open(csv).readline().startswith("frame,object,"), "per-object CSV beside the HDF5")
+
+
+def case_measure(binary, d):
+    # unwrap -> flatten -> zernike -> drymass on a reconstructed phase bump:
+    # the datasets exist with the documented shapes, and the dry mass equals
+    # lambda0/(2 pi alpha) * integral of phase (Barer 1952; Popescu 2008
+    # [from memory]) computed independently from /phase with numpy.
+    _, inst, _ = make_input(d, frames=2, peak=3.0)
+    stages = ('[[stage]]\ntype = "unwrap"\n[[stage]]\ntype = "flatten"\n[[stage]]\ntype = "zernike"\n'
+              '[[stage]]\ntype = "drymass"\nalpha = 0.2\n')
+    p = write(d, "m.toml", pipeline_text(inst, distance='"0 um"', extra_stage=stages))
+    code, _, err = run(binary, "run", p, "-q")
+    expect(code == 0, f"measurement run ({err.strip()})")
+    with h5py.File(os.path.join(d, "out.h5")) as f:
+        expect(f["compensation/coefficients"].shape == (2, 6), "compensation/coefficients (N, 6)")
+        expect(f["wavefront/zernike"].shape == (2, 15) and f["wavefront/zernike"].attrs["units"] == "nm",
+               "wavefront/zernike (N, 15) in nm")
+        expect(str(f["wavefront/zernike"].attrs["index"]).startswith("0:0,0:"), "ANSI index table attribute")
+        t = f["objects/mass"][...]
+        expect(set(t["frame"]) == {0, 1}, "objects in both frames")
+        ph = f["phase"][0]
+        dy, dx = f["phase"].attrs["pixel_pitch"]
+        bg = np.median(ph)
+        # total over the frame: m = lambda0/(2 pi alpha) * sum(phase - background) dA above 0.05 rad
+        sel = ph - bg > 0.05
+        mass = inst.wavelength * 1e6 / (2 * np.pi * 0.2) * np.sum((ph - bg)[sel]) * dy * dx * 1e12
+        total = t["dry_mass"][t["frame"] == 0].sum()
+        expect(abs(total - mass) / mass < 0.05, f"dry mass {total:.3f} pg vs numpy {mass:.3f} pg")
+        big = t[t["frame"] == 0][np.argmax(t["dry_mass"][t["frame"] == 0])]
+        # the bump's peak: 3 rad = 3 lambda0 / (2 pi) of optical path [derived]
+        expect(abs(big["peak_opd"] - 3 * inst.wavelength * 1e9 / (2 * np.pi)) < 5, f"peak OPD {big['peak_opd']:.1f} nm")
+    expect(os.path.exists(os.path.join(d, "out_objects_mass.csv")), "dry-mass CSV")
+    expect(os.path.exists(os.path.join(d, "out_wavefront_zernike_table.csv")), "Zernike CSV")
+
+
+CASES = {"autofocus": case_autofocus, "measure": case_measure, "zstack": case_zstack, "unwrap": case_unwrap, "layout": case_layout, "compression": case_compression, "errors": case_errors,
          "atomic": case_atomic, "threads": case_threads, "check": case_check}
 
 if __name__ == "__main__":
     binary, case = sys.argv[1], sys.argv[2]
-    with tempfile.TemporaryDirectory() as d:
-        CASES[case](os.path.abspath(binary), d)
+    keep = os.environ.get("WAVESTACK_KEEP_TEST_DIR")  # inspect a failing case's files
+    if keep:
+        os.makedirs(keep, exist_ok=True)
+        CASES[case](os.path.abspath(binary), keep)
+    else:
+        with tempfile.TemporaryDirectory() as d:
+            CASES[case](os.path.abspath(binary), d)
     print("FAILED" if problems else "PASS", f"({len(problems)} problems)")
     sys.exit(1 if problems else 0)

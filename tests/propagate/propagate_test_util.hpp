@@ -2,10 +2,13 @@
 // Shared helpers for tests/propagate: band-limited random fields, norms, and
 // the runner for the numpy reference script (/usr/bin/python3, the Debian
 // python that has numpy; the first python3 on PATH may not).
+#include "wavestack/core/grid.hpp"
 #include "wavestack/core/image.hpp"
+#include "wavestack/core/log.hpp"
 #include "wavestack/fft/fft.hpp"
 
 #include <cmath>
+#include <cstdio>
 #include <complex>
 #include <cstdlib>
 #include <filesystem>
@@ -92,6 +95,39 @@ inline int run_reference(const std::string& args) {
 }
 
 inline std::string shell_quoted(const std::string& s) { return "'" + s + "'"; }
+
+/// Run tests/propagate/reference_analytic.py (numpy + scipy) with `args`; 0 = ok.
+inline int run_analytic(const std::string& args) {
+  const std::string cmd = "/usr/bin/python3 '" WAVESTACK_SOURCE_DIR "/tests/propagate/reference_analytic.py' " +
+                          args + " > /dev/null";
+  return std::system(cmd.c_str());
+}
+
+/// A grid in object space (plane 0).
+inline wavestack::Grid grid_of(double dy, double dx, double wavelength, double index = 1.0) {
+  wavestack::Grid g;
+  g.dy = dy;
+  g.dx = dx;
+  g.wavelength = wavelength;
+  g.medium_index = index;
+  return g;
+}
+
+/// %.17g, for passing doubles to the reference scripts.
+inline std::string num17(double v) {
+  char buf[64];
+  std::snprintf(buf, sizeof buf, "%.17g", v);
+  return buf;
+}
+
+/// True when some recorded warning contains `text`; counts them in *n.
+inline bool warned(const std::string& text, std::size_t* n = nullptr) {
+  std::size_t c = 0;
+  for (const auto& w : wavestack::log::warnings())
+    if (w.find(text) != std::string::npos) ++c;
+  if (n) *n = c;
+  return c > 0;
+}
 
 /// Removes the listed files when it goes out of scope.
 struct TempFiles {

@@ -4,6 +4,8 @@
 
 #include "wavestack/core/error.hpp"
 #include "wavestack/propagate/angular_spectrum.hpp"
+#include "wavestack/propagate/plane_stack.hpp"
+#include "wavestack/propagate/propagator.hpp"
 
 #include <catch2/catch.hpp>
 
@@ -191,4 +193,126 @@ TEST_CASE("mismatched shapes and workspaces are rejected") {
   Image<cfloat> spec(3, 3);
   CHECK_THROWS_AS(as.apply_spectrum(spec, out.view(), ws), Error);
   CHECK_NOTHROW(as.apply(u.view(), out.view(), ws));
+}
+
+TEST_CASE("the common interface allocates nothing per call (all methods and the plane stack)") {
+  const Grid g = grid();
+  const Image<cfloat> u = field(45, 64, 21);
+  for (propagate::Method m : {propagate::Method::angular_spectrum, propagate::Method::fresnel,
+                              propagate::Method::fresnel_single_fft}) {
+    INFO(propagate::method_name(m));
+    propagate::PropagatorOptions o;
+    o.method = m;
+    auto p = propagate::make_propagator(45, 64, g, 12e-6, o);
+    auto ws = p->make_workspace();
+    const cfloat* padded = ws.padded.data();
+    Image<cfloat> out(p->out_height(), p->out_width()), first(p->out_height(), p->out_width());
+    p->apply(u.view(), first.view(), ws);
+    const std::size_t before = new_calls;
+    for (int i = 0; i < 4; ++i) p->apply(u.view(), out.view(), ws);
+    CHECK(new_calls == before);
+    CHECK(ws.padded.data() == padded);
+    CHECK(same(out.view(), first.view()));
+  }
+  propagate::PlaneStack stack(45, 64, g, {-5e-6, 0.0, 7e-6});
+  auto ws = stack.make_workspace();
+  Image<cfloat> spectrum = stack.make_spectrum(), out(45, 64);
+  stack.forward(u.view(), ws);
+  stack.plane(0, out.view(), ws);
+  const std::size_t before = new_calls;
+  for (int i = 0; i < 3; ++i) {
+    stack.forward(u.view(), ws);
+    for (std::size_t s = 0; s < 3; ++s) stack.plane(s, out.view(), ws);
+    stack.forward(u.view(), spectrum, ws);
+    stack.plane(2, spectrum, out.view(), ws);
+  }
+  CHECK(new_calls == before);
+}
+
+TEST_CASE("the angular spectrum of the common interface is bit-identical to AngularSpectrum and shares its workspace") {
+  // Same table (same double expressions), same plans, same multiply.
+  const Grid g = grid();
+  for (double pad : {1.0, 2.0, 1.5}) {
+    INFO("pad " << pad);
+    propagate::AngularSpectrumOptions ao;
+    ao.pad_factor = pad;
+    AngularSpectrum as(45, 64, g, -9e-6, ao);
+    propagate::PropagatorOptions o;
+    o.method = propagate::Method::angular_spectrum;
+    o.padding = propagate::Padding::of(pad);
+    auto p = propagate::make_propagator(45, 64, g, -9e-6, o);
+    REQUIRE(p->padded_height() == as.padded_height());
+    REQUIRE(p->padded_width() == as.padded_width());
+    const auto& tf = dynamic_cast<propagate::TransferPropagator&>(*p).transfer_function();
+    CHECK(std::memcmp(tf->full().data(), as.transfer().data(), as.transfer().size() * sizeof(cfloat)) == 0);
+    CHECK(tf->band_limit_fx() == as.band_limit_fx());
+    const Image<cfloat> u = field(45, 64, 22);
+    Image<cfloat> a(45, 64), b(45, 64);
+    auto ws = as.make_workspace(); // one workspace for both
+    as.apply(u.view(), a.view(), ws);
+    p->apply(u.view(), b.view(), ws);
+    CHECK(same(a.view(), b.view()));
+  }
+}
+
+TEST_CASE("the common interface works in place and on strided views") {
+  const Grid g = grid();
+  const Image<cfloat> u = field(32, 40, 23);
+  for (propagate::Method m : {propagate::Method::angular_spectrum, propagate::Method::fresnel,
+                              propagate::Method::fresnel_single_fft}) {
+    INFO(propagate::method_name(m));
+    propagate::PropagatorOptions o;
+    o.method = m;
+    o.padding = propagate::Padding::none(); // single-FFT output = input size
+    auto p = propagate::make_propagator(32, 40, g, 30e-6, o);
+    REQUIRE(p->out_height() == 32);
+    REQUIRE(p->out_width() == 40);
+    auto ws = p->make_workspace();
+    Image<cfloat> ref(32, 40);
+    p->apply(u.view(), ref.view(), ws);
+    Image<cfloat> inplace = u;
+    p->apply(inplace.view(), inplace.view(), ws);
+    CHECK(same(inplace.view(), ref.view()));
+    Image<cfloat> big_in(40, 50, cfloat(9, 9)), big_out(36, 47, cfloat(7, 7));
+    for (std::size_t y = 0; y < 32; ++y)
+      for (std::size_t x = 0; x < 40; ++x) big_in(y + 3, x + 5) = u(y, x);
+    p->apply(big_in.view().sub(3, 5, 32, 40), big_out.view().sub(2, 4, 32, 40), ws);
+    CHECK(same(big_out.view().sub(2, 4, 32, 40), ref.view()));
+    CHECK(big_out(0, 0) == cfloat(7, 7));
+    CHECK(big_out(35, 46) == cfloat(7, 7));
+    Image<cfloat> wrong(31, 40);
+    CHECK_THROWS_AS(p->apply(u.view(), wrong.view(), ws), Error);
+  }
+}
+
+TEST_CASE("concurrent apply of every method from two threads equals serial apply") {
+  // One workspace per thread, the propagator shared (const); FFTW's
+  // new-array execute is thread-safe (FFTW manual, "Thread safety"
+  // [confirmed]) and deterministic for the same plan and alignment.
+  const Grid g = grid();
+  for (propagate::Method m : {propagate::Method::angular_spectrum, propagate::Method::fresnel,
+                              propagate::Method::fresnel_single_fft}) {
+    INFO(propagate::method_name(m));
+    propagate::PropagatorOptions o;
+    o.method = m;
+    auto p = propagate::make_propagator(36, 48, g, -15e-6, o);
+    constexpr std::size_t jobs = 6;
+    std::vector<Image<cfloat>> in, serial, parallel;
+    auto ws = p->make_workspace();
+    for (std::size_t j = 0; j < jobs; ++j) {
+      in.push_back(field(36, 48, static_cast<unsigned>(40 + j)));
+      serial.emplace_back(p->out_height(), p->out_width());
+      parallel.emplace_back(p->out_height(), p->out_width());
+      p->apply(in[j].view(), serial[j].view(), ws);
+    }
+    std::vector<std::thread> pool;
+    for (std::size_t t = 0; t < 2; ++t)
+      pool.emplace_back([&, t] {
+        auto mine = p->make_workspace();
+        for (int rep = 0; rep < 5; ++rep)
+          for (std::size_t j = t; j < jobs; j += 2) p->apply(in[j].view(), parallel[j].view(), mine);
+      });
+    for (auto& th : pool) th.join();
+    for (std::size_t j = 0; j < jobs; ++j) CHECK(same(serial[j].view(), parallel[j].view()));
+  }
 }

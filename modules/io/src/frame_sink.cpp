@@ -111,8 +111,12 @@ struct FrameSink::Impl {
     p.file_space = space_hid(H5Dget_space(p.dset.get()));
     if (!p.file_space) fail_hdf5(ErrorKind::output, "could not read the dataspace", ctx(p.name));
     if (p.image) {
+      // Same rank and shape as the file selection, so HDF5 copies whole
+      // rows instead of iterating element by element.
       const hsize_t mdims[2] = {p.rows, p.cols};
-      p.mem_space = space_hid(H5Screate_simple(2, mdims, nullptr));
+      const hsize_t mdims4[4] = {1, p.planes, p.planes ? p.rows / std::max<std::size_t>(p.planes, 1) : p.rows, p.cols};
+      p.mem_space = p.planes ? space_hid(H5Screate_simple(4, mdims4, nullptr))
+                             : space_hid(H5Screate_simple(2, mdims, nullptr));
       p.mem_stride = p.cols;
       if (!p.mem_space) fail_hdf5(ErrorKind::output, "could not prepare the memory layout", ctx(p.name));
     }
@@ -200,6 +204,7 @@ struct FrameSink::Impl {
                     c);
     if (frame >= n) fail_internal("FrameSink: frame " + std::to_string(frame) + " beyond " + std::to_string(n), c);
     if (stride != p.mem_stride) {
+      if (p.planes) fail_internal("FrameSink: z-stack frames must be contiguous", c);
       const hsize_t mdims[2] = {h, stride}, start[2] = {0, 0}, cnt[2] = {h, w};
       Hid ms = space_hid(H5Screate_simple(2, mdims, nullptr));
       if (!ms || H5Sselect_hyperslab(ms.get(), H5S_SELECT_SET, start, nullptr, cnt, nullptr) < 0)

@@ -1,5 +1,7 @@
 #include "wavestack/propagate/angular_spectrum.hpp"
 
+#include "detail.hpp"
+
 #include "wavestack/core/error.hpp"
 #include "wavestack/core/units.hpp"
 
@@ -14,42 +16,14 @@ namespace wavestack::propagate {
 
 namespace {
 
-bool positive_finite(double v) { return std::isfinite(v) && v > 0.0; }
+using detail::multiply;
+using detail::positive_finite;
+using detail::shape;
 
-std::size_t padded_size(std::size_t n, double pad_factor) {
-  // The small tolerance keeps e.g. 1.1 * 100 = 110.00000000000001 at 110.
-  const double target = std::ceil(pad_factor * static_cast<double>(n) - 1e-9);
-  return fft::good_size(std::max(n, static_cast<std::size_t>(target)));
-}
-
-/// Matsushima & Shimobaba (2009): u_limit = 1/(λ sqrt((2 Δu z)^2 + 1)), Δu the
-/// frequency step of the padded grid, λ the wavelength in the medium.
+std::size_t padded_size(std::size_t n, double pad_factor) { return detail::padded_size(n, pad_factor); }
 double band_limit(double medium_wavelength, double df, double z) {
-  const double t = 2.0 * df * z;
-  return 1.0 / (medium_wavelength * std::sqrt(t * t + 1.0));
+  return detail::asm_band_limit(medium_wavelength, df, z);
 }
-
-/// spec[i] *= t[i] on interleaved (re, im) floats; written out so that the
-/// compiler vectorises it (std::complex operator* calls __mulsc3 for the
-/// C99 Annex G inf/nan rules and does not vectorise).
-void multiply(float* __restrict s, const float* __restrict t, std::size_t n) {
-  for (std::size_t i = 0; i < n; ++i) {
-    const float a = s[2 * i], b = s[2 * i + 1], c = t[2 * i], d = t[2 * i + 1];
-    s[2 * i] = a * c - b * d;
-    s[2 * i + 1] = a * d + b * c;
-  }
-}
-
-/// out[i] = in[i] * t[i].
-void multiply(const float* __restrict in, const float* __restrict t, float* __restrict out, std::size_t n) {
-  for (std::size_t i = 0; i < n; ++i) {
-    const float a = in[2 * i], b = in[2 * i + 1], c = t[2 * i], d = t[2 * i + 1];
-    out[2 * i] = a * c - b * d;
-    out[2 * i + 1] = a * d + b * c;
-  }
-}
-
-std::string shape(std::size_t h, std::size_t w) { return std::to_string(h) + "x" + std::to_string(w); }
 
 std::string number(double v) {
   char buf[32];

@@ -10,5 +10,10 @@ namespace wavestack::pipeline::stages {
 std::unique_ptr<Stage> make_fringe(Params& p);
 std::unique_ptr<Stage> make_sideband(Params& p);
 std::unique_ptr<Stage> make_propagate(Params& p);
+std::unique_ptr<Stage> make_unwrap(Params& p);
+std::unique_ptr<Stage> make_autofocus(Params& p);
+std::unique_ptr<Stage> make_flatten(Params& p);
+std::unique_ptr<Stage> make_zernike(Params& p);
+std::unique_ptr<Stage> make_drymass(Params& p);
 
 } // namespace wavestack::pipeline::stages

@@ -65,8 +65,10 @@ struct FrameState {
   /// TableSpec (flattened rows, cleared for every frame).
   std::vector<std::vector<double>> records;
   std::vector<std::vector<double>> table_rows;
-  /// Focus found by an autofocus stage for this frame (m); NaN when unsure.
+  /// Focus found by an autofocus stage for this frame: the distance from the
+  /// field's plane at that stage (m) and the absolute plane; NaN when unsure.
   double focus = 0;
+  double focus_plane = 0;
   bool focus_valid = false;
 };
 
@@ -103,6 +105,7 @@ struct Shape {
   std::size_t planes = 0;            ///< > 0 for a z-stack
   Grid grid;
   bool plane_varies = false;         ///< the reconstruction distance differs per frame
+  bool focus_available = false;      ///< an autofocus stage upstream sets FrameState::focus
 };
 
 /// Read-only facts a stage may use while planning.

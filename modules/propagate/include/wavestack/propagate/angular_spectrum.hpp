@@ -23,6 +23,7 @@
 #include "wavestack/core/grid.hpp"
 #include "wavestack/core/image.hpp"
 #include "wavestack/fft/fft.hpp"
+#include "wavestack/propagate/workspace.hpp"
 
 #include <cstddef>
 #include <memory>
@@ -64,17 +65,14 @@ public:
   /// (for diagnostics and tests).
   const Image<cfloat>& transfer() const noexcept { return transfer_; }
 
-  /// Scratch buffers for one thread. `padded` holds the field in its top-left
-  /// h×w corner and zeros elsewhere; the zeros are written once, by
-  /// make_workspace(), and never overwritten. A workspace may be shared by
-  /// propagators with the same padded size (e.g. the planes of a focus
-  /// sweep); apply() re-zeroes `padded` when the previous user wrote a
-  /// different corner size.
-  struct Workspace {
-    Image<cfloat> padded;
-    Image<cfloat> spectrum;
-    std::size_t filled_h = 0, filled_w = 0; ///< corner of `padded` that may be non-zero
-  };
+  /// Scratch buffers for one thread (see workspace.hpp): `padded` holds the
+  /// field in its top-left h×w corner and zeros elsewhere; the zeros are
+  /// written once, by make_workspace(), and never overwritten. A workspace
+  /// may be shared by propagators with the same padded size (e.g. the planes
+  /// of a focus sweep); apply() re-zeroes `padded` when the previous user
+  /// wrote a different corner size. The same type serves every propagator
+  /// of this module (propagate::Workspace).
+  using Workspace = propagate::Workspace;
   Workspace make_workspace() const;
 
   /// Propagate `in` (h×w) into `out` (h×w). `in` and `out` may be the same

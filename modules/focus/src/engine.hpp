@@ -1,0 +1,165 @@
+#pragma once
+// Shared machinery of Search and ObjectFocuser: the planned propagators of
+// the coarse planes and of the refinement offsets, the background handling,
+// the parallel sweep and the dyadic refinement.
+#include "wavestack/core/error.hpp"
+#include "wavestack/core/grid.hpp"
+#include "wavestack/core/image.hpp"
+#include "wavestack/focus/metric.hpp"
+#include "wavestack/focus/search.hpp"
+#include "wavestack/propagate/angular_spectrum.hpp"
+
+#include <tbb/blocked_range.h>
+#include <tbb/parallel_for.h>
+#include <tbb/parallel_invoke.h>
+#include <tbb/task_arena.h>
+
+#include <cmath>
+#include <cstddef>
+#include <string>
+#include <vector>
+
+namespace wavestack::focus::detail {
+
+/// One thread's buffers.
+struct Slot {
+  propagate::AngularSpectrum::Workspace prop;
+  Image<cfloat> out;                ///< propagated h×w field
+  MetricEvaluator::Scratch scratch; ///< metric scratch
+  Image<float> map;                 ///< object focus: max-projection of |∇v|² (else empty)
+};
+
+struct EngineWorkspace {
+  Image<cfloat> input;    ///< h×w: field minus background
+  Image<cfloat> spectrum; ///< ph×pw forward spectrum, shared read-only by the plane tasks
+  Image<cfloat> moved;    ///< ph×pw: spectrum moved to the refinement centre
+  std::vector<Slot> slots;
+  cfloat background{0.0f, 0.0f};
+  double rms = 0; ///< sqrt(mean |field|²)
+
+  Slot& slot() {
+    const int i = tbb::this_task_arena::current_thread_index();
+    if (i < 0 || static_cast<std::size_t>(i) >= slots.size())
+      fail_internal("focus: the workspace was made for " + std::to_string(slots.size()) +
+                    " threads and is used from thread " + std::to_string(i) +
+                    " of a larger task arena; make it in the arena that runs the search");
+    return slots[static_cast<std::size_t>(i)];
+  }
+};
+
+/// Result of the refinement.
+struct Refined {
+  double distance = 0;
+  std::size_t evaluations = 0;
+};
+
+class Engine {
+public:
+  Engine(std::size_t h, std::size_t w, const Grid& grid, double from, double to, double step, double pad_factor,
+         bool band_limit, Background background, int refine_levels);
+
+  std::size_t h, w, ph = 0, pw = 0;
+  Grid grid;
+  double step;
+  Background background;
+  int levels;
+  std::vector<double> distances;
+  std::vector<propagate::AngularSpectrum> planes;
+  std::vector<propagate::AngularSpectrum> offsets; ///< [2j] = -step/2^(j+1), [2j+1] = +step/2^(j+1)
+
+  /// One workspace with `threads` slots (0 = the current arena's concurrency);
+  /// `map` adds the object-focus max-projection buffer to each slot.
+  EngineWorkspace make_workspace(const MetricEvaluator& ev, bool map, std::size_t threads = 0) const;
+
+  /// Subtract the background and compute the forward spectrum.
+  void prepare(ImageView<const cfloat> field, EngineWorkspace& ws) const;
+
+  /// Background at distance z: b·exp(i 2π n z/λ0).
+  cfloat background_at(const EngineWorkspace& ws, double z) const {
+    const double ph_ = grid.wavenumber() * z;
+    const std::complex<double> b(ws.background.real(), ws.background.imag());
+    const std::complex<double> v = b * std::complex<double>(std::cos(ph_), std::sin(ph_));
+    return cfloat(static_cast<float>(v.real()), static_cast<float>(v.imag()));
+  }
+
+  /// Propagate planes [a, b] in parallel; fn(i, slot, bz) is called with
+  /// slot.out holding the field of plane i and bz its background.
+  /// The loop runs in tbb::this_task_arena::isolate, so a thread waiting
+  /// for it only picks up tasks of this sweep — never an outer task (e.g.
+  /// another frame of a pipeline) that could reuse the caller's workspace.
+  template <class Fn> void sweep(std::size_t a, std::size_t b, EngineWorkspace& ws, Fn&& fn) const {
+    tbb::this_task_arena::isolate([&] {
+      tbb::parallel_for(tbb::blocked_range<std::size_t>(a, b + 1, 1), [&](const tbb::blocked_range<std::size_t>& r) {
+        Slot& s = ws.slot();
+        for (std::size_t i = r.begin(); i != r.end(); ++i) {
+          planes[i].apply_spectrum(ws.spectrum, s.out, s.prop);
+          fn(i, s, background_at(ws, distances[i]));
+        }
+      });
+    });
+  }
+
+  /// Refine around coarse plane i (0 < i < S-1) maximising sign·f, with
+  /// f_l, f_c, f_r the curve at planes i-1, i, i+1 and eval(slot, bz) the
+  /// metric of slot.out. Uses ws.moved. See search.hpp for the method.
+  template <class Eval>
+  Refined refine(std::size_t i, int sign, double fl, double fc, double fr, EngineWorkspace& ws, Eval&& eval) const {
+    Refined res;
+    double c = distances[i], hstep = step; // bracket: c ± hstep
+    fl *= sign;
+    fc *= sign;
+    fr *= sign;
+    if (levels > 0) move_spectrum(ws, planes[i].transfer(), true);
+    for (int j = 0; j < levels; ++j) {
+      const double hh = hstep / 2;
+      const propagate::AngularSpectrum& om = offsets[2 * j];
+      const propagate::AngularSpectrum& op = offsets[2 * j + 1];
+      double fm = 0, fp = 0;
+      tbb::this_task_arena::isolate([&] {
+        tbb::parallel_invoke(
+            [&] {
+              Slot& s = ws.slot();
+              om.apply_spectrum(ws.moved, s.out, s.prop);
+              fm = sign * eval(s, background_at(ws, c - hh));
+            },
+            [&] {
+              Slot& s = ws.slot();
+              op.apply_spectrum(ws.moved, s.out, s.prop);
+              fp = sign * eval(s, background_at(ws, c + hh));
+            });
+      });
+      res.evaluations += 2;
+      // NaN never wins a comparison, so a NaN evaluation keeps the centre.
+      const bool last = j + 1 == levels;
+      if (fm > fc && fm >= fp) {
+        fr = fc;
+        fc = fm;
+        c -= hh;
+        if (!last) move_spectrum(ws, om.transfer(), false);
+      } else if (fp > fc) {
+        fl = fc;
+        fc = fp;
+        c += hh;
+        if (!last) move_spectrum(ws, op.transfer(), false);
+      } else {
+        fl = fm;
+        fr = fp;
+      }
+      hstep = hh;
+    }
+    // Parabola through (c - hstep, c, c + hstep); fc >= fl, fr keeps the
+    // vertex within ±hstep/2.
+    const double den = fl - 2 * fc + fr;
+    double delta = 0;
+    if (std::isfinite(den) && den < 0) delta = 0.5 * hstep * (fl - fr) / den;
+    if (!(std::abs(delta) <= 0.5 * hstep)) delta = 0;
+    res.distance = c + delta;
+    return res;
+  }
+
+private:
+  /// moved = (from_spectrum ? spectrum : moved) · t · (ph·pw) (t = H/(ph·pw)).
+  void move_spectrum(EngineWorkspace& ws, const Image<cfloat>& t, bool from_spectrum) const;
+};
+
+} // namespace wavestack::focus::detail

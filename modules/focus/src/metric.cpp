@@ -1,0 +1,514 @@
+#include "wavestack/focus/metric.hpp"
+
+#include "wavestack/core/error.hpp"
+
+#include <algorithm>
+#include <array>
+#include <cmath>
+#include <limits>
+#include <string>
+
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+#if defined(__x86_64__) && defined(__GNUC__)
+#include <immintrin.h>
+#endif
+
+namespace wavestack::focus {
+
+namespace {
+
+constexpr std::array<MetricInfo, 8> infos = {{
+    {Metric::auto_select, "auto", Sense::maximum, "resolves to tamura-gradient"},
+    {Metric::integrated_amplitude, "integrated-amplitude", Sense::depends,
+     "Dubois et al., Opt. Express 14(13), 5895 (2006) [confirmed]"},
+    {Metric::amplitude_variance, "amplitude-variance", Sense::depends,
+     "Dubois et al., Opt. Express 14(13), 5895 (2006) [from memory]"},
+    {Metric::tamura_amplitude, "tamura-amplitude", Sense::depends,
+     "Memmolo et al., Opt. Lett. 36(10), 1945 (2011) [from memory]"},
+    {Metric::tamura_gradient, "tamura-gradient", Sense::maximum, "Tamamitsu et al., arXiv (2017) [confirmed]"},
+    {Metric::gradient_energy, "gradient-energy", Sense::depends,
+     "[common practice]; Langehanenberg et al., Appl. Opt. 47(19), D176 (2008) [from memory]"},
+    {Metric::laplacian_variance, "laplacian-variance", Sense::depends,
+     "[common practice]; Langehanenberg et al., Appl. Opt. 47(19), D176 (2008) [from memory]"},
+    {Metric::spectral_energy, "spectral-energy", Sense::depends,
+     "[common practice]; after Langehanenberg et al., Appl. Opt. 47(19), D176 (2008) [from memory]"},
+}};
+
+constexpr std::array<Metric, 7> concrete = {Metric::integrated_amplitude, Metric::amplitude_variance,
+                                            Metric::tamura_amplitude,     Metric::tamura_gradient,
+                                            Metric::gradient_energy,      Metric::laplacian_variance,
+                                            Metric::spectral_energy};
+
+// The pixel kernels below run once per pixel per plane, the hot loop of a
+// focus sweep after the FFT. std::sqrt sets errno and is not vectorised
+// without -fno-math-errno, so the amplitude and gradient-modulus rows, the
+// map and the double sums use SSE2 (part of every x86-64) four pixels at a
+// time, with the scalar loop for the rest of a row and other targets.
+
+inline float amp(float re, float im) { return std::sqrt(re * re + im * im); }
+
+#if defined(__SSE2__)
+/// |p + b| of four interleaved complex values p[0..8).
+inline __m128 amp4(const float* p, __m128 b) {
+  const __m128 a = _mm_add_ps(_mm_loadu_ps(p), b), c = _mm_add_ps(_mm_loadu_ps(p + 4), b);
+  const __m128 a2 = _mm_mul_ps(a, a), c2 = _mm_mul_ps(c, c);
+  return _mm_sqrt_ps(
+      _mm_add_ps(_mm_shuffle_ps(a2, c2, _MM_SHUFFLE(2, 0, 2, 0)), _mm_shuffle_ps(a2, c2, _MM_SHUFFLE(3, 1, 3, 1))));
+}
+/// |∇v|² of four pixels: |p[x+1] - p[x]|² + |q[x] - p[x]|² (q: next row).
+inline __m128 grad2_4(const float* p, const float* q) {
+  const __m128 p0 = _mm_loadu_ps(p), p1 = _mm_loadu_ps(p + 4);
+  const __m128 dx0 = _mm_sub_ps(_mm_loadu_ps(p + 2), p0), dx1 = _mm_sub_ps(_mm_loadu_ps(p + 6), p1);
+  const __m128 dy0 = _mm_sub_ps(_mm_loadu_ps(q), p0), dy1 = _mm_sub_ps(_mm_loadu_ps(q + 4), p1);
+  const __m128 s0 = _mm_add_ps(_mm_mul_ps(dx0, dx0), _mm_mul_ps(dy0, dy0));
+  const __m128 s1 = _mm_add_ps(_mm_mul_ps(dx1, dx1), _mm_mul_ps(dy1, dy1));
+  return _mm_add_ps(_mm_shuffle_ps(s0, s1, _MM_SHUFFLE(2, 0, 2, 0)), _mm_shuffle_ps(s0, s1, _MM_SHUFFLE(3, 1, 3, 1)));
+}
+#endif
+
+#if defined(__x86_64__) && defined(__GNUC__)
+#define WAVESTACK_FOCUS_AVX2 1
+// AVX2 versions of the hottest kernels (tamura-gradient, the amplitude
+// metrics, the object map and the sums), compiled for AVX2 with a target
+// attribute and chosen at run time when the CPU has it; same arithmetic in
+// the same precision as the SSE2/scalar paths (results may differ in the
+// last bit of a sum's round-off, not in the metric's meaning).
+namespace avx2 {
+
+__attribute__((target("avx2"))) inline __m256 reorder(__m256 v) {
+  // _mm256_shuffle_ps works per 128-bit half: restore pixel order 0..7.
+  return _mm256_castpd_ps(_mm256_permute4x64_pd(_mm256_castps_pd(v), _MM_SHUFFLE(3, 1, 2, 0)));
+}
+__attribute__((target("avx2"))) inline __m256 pair_sum(__m256 a2, __m256 c2) {
+  return reorder(_mm256_add_ps(_mm256_shuffle_ps(a2, c2, _MM_SHUFFLE(2, 0, 2, 0)),
+                               _mm256_shuffle_ps(a2, c2, _MM_SHUFFLE(3, 1, 3, 1))));
+}
+/// |p + b| of eight interleaved complex values p[0..16).
+__attribute__((target("avx2"))) inline __m256 amp8(const float* p, __m256 b) {
+  const __m256 a = _mm256_add_ps(_mm256_loadu_ps(p), b), c = _mm256_add_ps(_mm256_loadu_ps(p + 8), b);
+  return _mm256_sqrt_ps(pair_sum(_mm256_mul_ps(a, a), _mm256_mul_ps(c, c)));
+}
+/// |∇v|² of eight pixels.
+__attribute__((target("avx2"))) inline __m256 grad2_8(const float* p, const float* q) {
+  const __m256 p0 = _mm256_loadu_ps(p), p1 = _mm256_loadu_ps(p + 8);
+  const __m256 dx0 = _mm256_sub_ps(_mm256_loadu_ps(p + 2), p0), dx1 = _mm256_sub_ps(_mm256_loadu_ps(p + 10), p1);
+  const __m256 dy0 = _mm256_sub_ps(_mm256_loadu_ps(q), p0), dy1 = _mm256_sub_ps(_mm256_loadu_ps(q + 8), p1);
+  return pair_sum(_mm256_add_ps(_mm256_mul_ps(dx0, dx0), _mm256_mul_ps(dy0, dy0)),
+                  _mm256_add_ps(_mm256_mul_ps(dx1, dx1), _mm256_mul_ps(dy1, dy1)));
+}
+/// Rows of amplitude (grad = false) or gradient modulus; returns pixels done.
+__attribute__((target("avx2"))) std::size_t row(bool grad, const float* r0, const float* r1, float br, float bi,
+                                                std::size_t n, float* q) {
+  std::size_t i = 0;
+  if (grad) {
+    for (; i + 8 <= n; i += 8) _mm256_storeu_ps(q + i, _mm256_sqrt_ps(grad2_8(r0 + 2 * i, r1 + 2 * i)));
+  } else {
+    const __m256 b8 = _mm256_setr_ps(br, bi, br, bi, br, bi, br, bi);
+    for (; i + 8 <= n; i += 8) _mm256_storeu_ps(q + i, amp8(r0 + 2 * i, b8));
+  }
+  return i;
+}
+__attribute__((target("avx2"))) std::size_t map(const float* r0, const float* r1, std::size_t n, float* m) {
+  std::size_t i = 0;
+  for (; i + 8 <= n; i += 8)
+    _mm256_storeu_ps(m + i, _mm256_max_ps(_mm256_loadu_ps(m + i), grad2_8(r0 + 2 * i, r1 + 2 * i)));
+  return i;
+}
+__attribute__((target("avx2"))) std::size_t sums(const float* q, std::size_t n, double& s1, double& s2) {
+  std::size_t i = 0;
+  __m256d a0 = _mm256_setzero_pd(), a1 = _mm256_setzero_pd(), b0 = _mm256_setzero_pd(), b1 = _mm256_setzero_pd();
+  for (; i + 8 <= n; i += 8) {
+    const __m256 v = _mm256_loadu_ps(q + i);
+    const __m256d lo = _mm256_cvtps_pd(_mm256_castps256_ps128(v)), hi = _mm256_cvtps_pd(_mm256_extractf128_ps(v, 1));
+    a0 = _mm256_add_pd(a0, lo);
+    a1 = _mm256_add_pd(a1, hi);
+    b0 = _mm256_add_pd(b0, _mm256_mul_pd(lo, lo));
+    b1 = _mm256_add_pd(b1, _mm256_mul_pd(hi, hi));
+  }
+  double ta[4], tb[4];
+  _mm256_storeu_pd(ta, _mm256_add_pd(a0, a1));
+  _mm256_storeu_pd(tb, _mm256_add_pd(b0, b1));
+  s1 += (ta[0] + ta[1]) + (ta[2] + ta[3]);
+  s2 += (tb[0] + tb[1]) + (tb[2] + tb[3]);
+  return i;
+}
+
+/// Σq, Σq², Σmq, Σmq² over n values; returns the count done (multiple of 8).
+__attribute__((target("avx2"))) std::size_t masked_sums(const float* q, const float* m, std::size_t n, double* out) {
+  std::size_t i = 0;
+  __m256d s1 = _mm256_setzero_pd(), s2 = _mm256_setzero_pd(), t1 = _mm256_setzero_pd(), t2 = _mm256_setzero_pd();
+  for (; i + 8 <= n; i += 8) {
+    const __m256 v = _mm256_loadu_ps(q + i), mv = _mm256_mul_ps(v, _mm256_loadu_ps(m + i));
+    const __m256d lo = _mm256_cvtps_pd(_mm256_castps256_ps128(v)), hi = _mm256_cvtps_pd(_mm256_extractf128_ps(v, 1));
+    const __m256d mlo = _mm256_cvtps_pd(_mm256_castps256_ps128(mv)),
+                  mhi = _mm256_cvtps_pd(_mm256_extractf128_ps(mv, 1));
+    s1 = _mm256_add_pd(s1, _mm256_add_pd(lo, hi));
+    s2 = _mm256_add_pd(s2, _mm256_add_pd(_mm256_mul_pd(lo, lo), _mm256_mul_pd(hi, hi)));
+    t1 = _mm256_add_pd(t1, _mm256_add_pd(mlo, mhi));
+    t2 = _mm256_add_pd(t2, _mm256_add_pd(_mm256_mul_pd(mlo, lo), _mm256_mul_pd(mhi, hi)));
+  }
+  double a[4];
+  _mm256_storeu_pd(a, s1);
+  out[0] += (a[0] + a[1]) + (a[2] + a[3]);
+  _mm256_storeu_pd(a, s2);
+  out[1] += (a[0] + a[1]) + (a[2] + a[3]);
+  _mm256_storeu_pd(a, t1);
+  out[2] += (a[0] + a[1]) + (a[2] + a[3]);
+  _mm256_storeu_pd(a, t2);
+  out[3] += (a[0] + a[1]) + (a[2] + a[3]);
+  return i;
+}
+
+bool available() {
+  static const bool ok = __builtin_cpu_supports("avx2");
+  return ok;
+}
+
+} // namespace avx2
+#endif
+
+/// out += {Σq, Σq², Σmq, Σmq²} for a 0/1 mask m (m·q² = (m·q)·q).
+void masked_sums(const float* q, const float* m, std::size_t n, double* out) {
+  std::size_t i = 0;
+#if defined(WAVESTACK_FOCUS_AVX2)
+  if (avx2::available()) i = avx2::masked_sums(q, m, n, out);
+#endif
+  double a = 0, b = 0, c = 0, d = 0;
+  for (; i < n; ++i) {
+    const double v = q[i], mv = m[i] * v;
+    a += v;
+    b += v * v;
+    c += mv;
+    d += mv * v;
+  }
+  out[0] += a;
+  out[1] += b;
+  out[2] += c;
+  out[3] += d;
+}
+
+/// Domain of the pixel quantity: the rows/columns where it is defined.
+struct Domain {
+  std::size_t y0, x0, y1, x1;
+};
+
+Domain domain(Metric m, std::size_t h, std::size_t w) {
+  switch (m) {
+  case Metric::tamura_gradient:
+  case Metric::gradient_energy: return {0, 0, h > 0 ? h - 1 : 0, w > 0 ? w - 1 : 0};
+  case Metric::laplacian_variance: return {1, 1, h > 1 ? h - 1 : 1, w > 1 ? w - 1 : 1};
+  default: return {0, 0, h, w};
+  }
+}
+
+/// q[i] for pixels (y, x0+i), i < n, of metric m on v = u + b. `y` and the
+/// columns are inside the metric's domain, so every neighbour read exists.
+void row_quantity(Metric m, ImageView<const cfloat> u, cfloat b, std::size_t y, std::size_t x0, std::size_t n,
+                  float* __restrict q) {
+  const float br = b.real(), bi = b.imag();
+  const float* r0 = reinterpret_cast<const float*>(u.row(y) + x0);
+  std::size_t i = 0;
+  switch (m) {
+  case Metric::integrated_amplitude:
+  case Metric::amplitude_variance:
+  case Metric::tamura_amplitude:
+  case Metric::spectral_energy: {
+#if defined(WAVESTACK_FOCUS_AVX2)
+    if (avx2::available()) i = avx2::row(false, r0, nullptr, br, bi, n, q);
+#endif
+#if defined(__SSE2__)
+    const __m128 b4 = _mm_setr_ps(br, bi, br, bi);
+    for (; i + 4 <= n; i += 4) _mm_storeu_ps(q + i, amp4(r0 + 2 * i, b4));
+#endif
+    for (; i < n; ++i) q[i] = amp(r0[2 * i] + br, r0[2 * i + 1] + bi);
+    break;
+  }
+  case Metric::tamura_gradient: {
+    const float* r1 = reinterpret_cast<const float*>(u.row(y + 1) + x0);
+#if defined(WAVESTACK_FOCUS_AVX2)
+    if (avx2::available()) i = avx2::row(true, r0, r1, br, bi, n, q);
+#endif
+#if defined(__SSE2__)
+    for (; i + 4 <= n; i += 4) _mm_storeu_ps(q + i, _mm_sqrt_ps(grad2_4(r0 + 2 * i, r1 + 2 * i)));
+#endif
+    for (; i < n; ++i) {
+      const float ar = r0[2 * i + 2] - r0[2 * i], ai = r0[2 * i + 3] - r0[2 * i + 1];
+      const float cr = r1[2 * i] - r0[2 * i], ci = r1[2 * i + 1] - r0[2 * i + 1];
+      q[i] = std::sqrt(ar * ar + ai * ai + cr * cr + ci * ci);
+    }
+    break;
+  }
+  case Metric::gradient_energy: {
+    const float* r1 = reinterpret_cast<const float*>(u.row(y + 1) + x0);
+    for (; i < n; ++i) {
+      const float a = amp(r0[2 * i] + br, r0[2 * i + 1] + bi);
+      const float ax = amp(r0[2 * i + 2] + br, r0[2 * i + 3] + bi) - a;
+      const float ay = amp(r1[2 * i] + br, r1[2 * i + 1] + bi) - a;
+      q[i] = ax * ax + ay * ay;
+    }
+    break;
+  }
+  case Metric::laplacian_variance: {
+    const float* rm = reinterpret_cast<const float*>(u.row(y - 1) + x0);
+    const float* rp = reinterpret_cast<const float*>(u.row(y + 1) + x0);
+    for (; i < n; ++i) {
+      const float a = amp(r0[2 * i] + br, r0[2 * i + 1] + bi);
+      const float l = amp(r0[2 * i - 2] + br, r0[2 * i - 1] + bi) + amp(r0[2 * i + 2] + br, r0[2 * i + 3] + bi) +
+                      amp(rm[2 * i] + br, rm[2 * i + 1] + bi) + amp(rp[2 * i] + br, rp[2 * i + 1] + bi) - 4.0f * a;
+      q[i] = l;
+    }
+    break;
+  }
+  case Metric::auto_select: break; // resolved before
+  }
+}
+
+/// map[i] = max(map[i], |∇v|²) for pixels (y, x0+i) with forward differences.
+void row_map(ImageView<const cfloat> u, std::size_t y, std::size_t x0, std::size_t n, float* __restrict map) {
+  const float* r0 = reinterpret_cast<const float*>(u.row(y) + x0);
+  const float* r1 = reinterpret_cast<const float*>(u.row(y + 1) + x0);
+  std::size_t i = 0;
+#if defined(WAVESTACK_FOCUS_AVX2)
+  if (avx2::available()) i = avx2::map(r0, r1, n, map);
+#endif
+#if defined(__SSE2__)
+  for (; i + 4 <= n; i += 4) _mm_storeu_ps(map + i, _mm_max_ps(_mm_loadu_ps(map + i), grad2_4(r0 + 2 * i, r1 + 2 * i)));
+#endif
+  for (; i < n; ++i) {
+    const float ar = r0[2 * i + 2] - r0[2 * i], ai = r0[2 * i + 3] - r0[2 * i + 1];
+    const float cr = r1[2 * i] - r0[2 * i], ci = r1[2 * i + 1] - r0[2 * i + 1];
+    map[i] = std::max(map[i], ar * ar + ai * ai + cr * cr + ci * ci);
+  }
+}
+
+/// Σq and Σq² of q[0..n) in double (float values converted exactly).
+void sums(const float* q, std::size_t n, double& s1, double& s2) {
+  std::size_t i = 0;
+  double a = 0, b = 0;
+#if defined(WAVESTACK_FOCUS_AVX2)
+  if (avx2::available()) {
+    i = avx2::sums(q, n, s1, s2);
+    q += i;
+    n -= i;
+    i = 0;
+  }
+#endif
+#if defined(__SSE2__)
+  __m128d a0 = _mm_setzero_pd(), a1 = _mm_setzero_pd(), b0 = _mm_setzero_pd(), b1 = _mm_setzero_pd();
+  for (; i + 4 <= n; i += 4) {
+    const __m128 v = _mm_loadu_ps(q + i);
+    const __m128d lo = _mm_cvtps_pd(v), hi = _mm_cvtps_pd(_mm_movehl_ps(v, v));
+    a0 = _mm_add_pd(a0, lo);
+    a1 = _mm_add_pd(a1, hi);
+    b0 = _mm_add_pd(b0, _mm_mul_pd(lo, lo));
+    b1 = _mm_add_pd(b1, _mm_mul_pd(hi, hi));
+  }
+  double ta[2], tb[2];
+  _mm_storeu_pd(ta, _mm_add_pd(a0, a1));
+  _mm_storeu_pd(tb, _mm_add_pd(b0, b1));
+  a = ta[0] + ta[1];
+  b = tb[0] + tb[1];
+#endif
+  for (; i < n; ++i) {
+    const double v = q[i];
+    a += v;
+    b += v * v;
+  }
+  s1 += a;
+  s2 += b;
+}
+
+} // namespace
+
+Metric resolve(Metric m) noexcept { return m == Metric::auto_select ? Metric::tamura_gradient : m; }
+
+const MetricInfo& info(Metric m) noexcept {
+  for (const auto& i : infos)
+    if (i.metric == m) return i;
+  return infos[0];
+}
+
+std::span<const Metric> all_metrics() noexcept { return concrete; }
+
+std::optional<Metric> parse_metric(std::string_view name) noexcept {
+  for (const auto& i : infos)
+    if (i.name == name) return i.metric;
+  return std::nullopt;
+}
+
+bool is_moment_metric(Metric m) noexcept { return resolve(m) != Metric::spectral_energy; }
+
+double metric_value(Metric m, const Moments& q) noexcept {
+  constexpr double nan = std::numeric_limits<double>::quiet_NaN();
+  if (!(q.n > 0)) return nan;
+  const double mean = q.s1 / q.n;
+  const double var = std::max(0.0, q.s2 / q.n - mean * mean);
+  switch (resolve(m)) {
+  case Metric::integrated_amplitude:
+  case Metric::gradient_energy: return mean;
+  case Metric::amplitude_variance:
+  case Metric::laplacian_variance: return var;
+  case Metric::tamura_amplitude:
+  case Metric::tamura_gradient: return mean > 0 ? std::sqrt(std::sqrt(var) / mean) : nan;
+  default: return nan;
+  }
+}
+
+MetricEvaluator::MetricEvaluator(Metric metric, std::size_t h, std::size_t w, const Roi& roi, const Grid& grid,
+                                 double band_low, double band_high)
+    : metric_(resolve(metric)), h_(h), w_(w), roi_(roi) {
+  if (h == 0 || w == 0) fail_config("focus metric: the field is empty");
+  if (roi_.whole()) roi_ = Roi{0, 0, h, w};
+  if (roi_.y + roi_.height > h || roi_.x + roi_.width > w)
+    fail_config("focus metric: the region of interest (rows " + std::to_string(roi_.y) + "+" +
+                std::to_string(roi_.height) + ", columns " + std::to_string(roi_.x) + "+" +
+                std::to_string(roi_.width) + ") leaves the " + std::to_string(h) + "x" + std::to_string(w) +
+                " frame");
+  if (metric_ != Metric::spectral_energy) return;
+  if (!(grid.dx > 0 && grid.dy > 0)) fail_config("focus metric: spectral-energy needs a positive pixel pitch");
+  if (!(band_low >= 0 && band_high >= 0 && std::isfinite(band_low) && std::isfinite(band_high)))
+    fail_config("focus metric: the spectral band limits must be non-negative frequencies");
+  fh_ = fft::good_size(roi_.height);
+  fw_ = fft::good_size(roi_.width);
+  r2c_ = fft::plan_r2c(fh_, fw_);
+  const std::size_t sw = fw_ / 2 + 1;
+  band_.resize(fh_, sw);
+  const double hi = band_high > 0 ? band_high : std::numeric_limits<double>::infinity();
+  band_count_ = 0;
+  for (std::size_t ky = 0; ky < fh_; ++ky)
+    for (std::size_t kx = 0; kx < sw; ++kx) {
+      const double fy = fft::bin_frequency(ky, fh_, grid.dy), fx = static_cast<double>(kx) / (fw_ * grid.dx);
+      const double f = std::sqrt(fx * fx + fy * fy);
+      const bool in = (kx != 0 || ky != 0) && f >= band_low && f <= hi;
+      // Columns 1..(fw-1)/2 stand for themselves and their Hermitian twin.
+      const unsigned char weight = !in ? 0 : (kx == 0 || 2 * kx == fw_) ? 1 : 2;
+      band_(ky, kx) = weight;
+      band_count_ += weight;
+      if ((kx + ky) % 2 == 0) band_even_ += weight;
+    }
+  if (band_even_ == 0 || band_even_ == band_count_) fail_config("focus metric: the spectral band holds no frequency of the region of interest");
+}
+
+MetricEvaluator::Scratch MetricEvaluator::make_scratch() const {
+  Scratch s;
+  s.row = Image<float>(1, w_ + 4);
+  s.mask = Image<float>(1, w_ + 4);
+  if (metric_ == Metric::spectral_energy) {
+    s.amplitude = Image<float>(fh_, fw_, 0.0f);
+    s.spectrum = Image<cfloat>(fh_, fw_ / 2 + 1);
+  }
+  return s;
+}
+
+void MetricEvaluator::accumulate(ImageView<const cfloat> u, cfloat background, std::size_t y0, std::size_t x0,
+                                 std::size_t y1, std::size_t x1, std::size_t tile, std::size_t ty0, std::size_t tx0,
+                                 std::size_t tiles_x, Moments* tiles, ImageView<float> map, Scratch& s) const {
+  if (u.height() != h_ || u.width() != w_) fail_internal("focus metric: the field does not have the planned size");
+  if (s.row.width() < w_) fail_internal("focus metric: the scratch was made by another evaluator");
+  float* q = s.row.data();
+  if (!map.empty()) {
+    const std::size_t my1 = std::min(y1, h_ - 1), mx1 = std::min(x1, w_ - 1);
+    for (std::size_t y = y0; y < my1; ++y)
+      if (mx1 > x0) row_map(u, y, x0, mx1 - x0, map.row(y) + x0);
+  }
+  const Domain d = domain(metric_, h_, w_);
+  const std::size_t ya = std::max(y0, d.y0), yb = std::min(y1, d.y1);
+  const std::size_t xa = std::max(x0, d.x0), xb = std::min(x1, d.x1);
+  if (ya >= yb || xa >= xb) return;
+  for (std::size_t y = ya; y < yb; ++y) {
+    row_quantity(metric_, u, background, y, xa, xb - xa, q);
+    Moments* trow = tiles + ((y - ty0) / tile) * tiles_x;
+    std::size_t x = xa;
+    while (x < xb) {
+      const std::size_t tx = (x - tx0) / tile;
+      const std::size_t end = std::min(xb, tx0 + (tx + 1) * tile);
+      Moments& t = trow[tx];
+      sums(q + (x - xa), end - x, t.s1, t.s2);
+      t.n += static_cast<double>(end - x);
+      x = end;
+    }
+  }
+}
+
+void MetricEvaluator::accumulate_split(ImageView<const cfloat> u, cfloat background, std::size_t tile, Moments& a,
+                                       Moments& b, Scratch& s) const {
+  if (u.height() != h_ || u.width() != w_) fail_internal("focus metric: the field does not have the planned size");
+  if (s.row.width() < w_) fail_internal("focus metric: the scratch was made by another evaluator");
+  a = b = Moments{};
+  const Domain d = domain(metric_, h_, w_);
+  const std::size_t ya = std::max(roi_.y, d.y0), yb = std::min(roi_.y + roi_.height, d.y1);
+  const std::size_t xa = std::max(roi_.x, d.x0), xb = std::min(roi_.x + roi_.width, d.x1);
+  if (ya >= yb || xa >= xb || tile == 0) return;
+  float* q = s.row.data();
+  float* mask = s.mask.data();
+  const std::size_t n = xb - xa;
+  std::size_t count_even = 0;
+  for (std::size_t x = xa; x < xb; ++x) {
+    const bool even = ((x - roi_.x) / tile) % 2 == 0;
+    mask[x - xa] = even ? 1.0f : 0.0f;
+    count_even += even;
+  }
+  const double ne = static_cast<double>(count_even);
+  for (std::size_t y = ya; y < yb; ++y) {
+    row_quantity(metric_, u, background, y, xa, n, q);
+    double acc[4] = {0, 0, 0, 0}; // all, all², even blocks, even blocks²
+    masked_sums(q, mask, n, acc);
+    // Even block-rows: even block-columns go to a; odd block-rows swap.
+    const bool odd_row = ((y - roi_.y) / tile) % 2 == 1;
+    const Moments even{ne, acc[2], acc[3]}, odd{static_cast<double>(n) - ne, acc[0] - acc[2], acc[1] - acc[3]};
+    (odd_row ? b : a) += even;
+    (odd_row ? a : b) += odd;
+  }
+}
+
+double MetricEvaluator::spectral(ImageView<const cfloat> u, cfloat background, Scratch& s, double* split) const {
+  const std::size_t rh = roi_.height, rw = roi_.width;
+  double sum = 0;
+  for (std::size_t y = 0; y < rh; ++y) {
+    float* a = s.amplitude.row(y);
+    row_quantity(Metric::integrated_amplitude, u, background, roi_.y + y, roi_.x, rw, a);
+    for (std::size_t x = 0; x < rw; ++x) sum += a[x];
+  }
+  const double n = static_cast<double>(rh * rw);
+  const double mean = sum / n;
+  if (!(mean > 0)) return std::numeric_limits<double>::quiet_NaN();
+  const float m = static_cast<float>(mean);
+  for (std::size_t y = 0; y < rh; ++y) {
+    float* a = s.amplitude.row(y);
+    for (std::size_t x = 0; x < rw; ++x) a[x] -= m;
+  }
+  r2c_->execute(s.amplitude.data(), s.spectrum.data());
+  // |F|/sqrt(n) has the units of the pixel standard deviation (Parseval);
+  // dividing by the mean makes it a relative contrast.
+  const double scale = 1.0 / (std::sqrt(n) * mean);
+  double e[2] = {0, 0};
+  const std::size_t sw = fw_ / 2 + 1;
+  for (std::size_t ky = 0; ky < fh_; ++ky) {
+    const cfloat* f = s.spectrum.row(ky);
+    const unsigned char* b = band_.row(ky);
+    for (std::size_t kx = 0; kx < sw; ++kx)
+      if (b[kx]) e[(kx + ky) % 2] += b[kx] * std::log1p(scale * amp(f[kx].real(), f[kx].imag()));
+  }
+  if (split) {
+    const double ne = static_cast<double>(band_even_), no = static_cast<double>(band_count_ - band_even_);
+    *split = 0.5 * (e[0] / ne - e[1] / no);
+  }
+  return (e[0] + e[1]) / static_cast<double>(band_count_);
+}
+
+double MetricEvaluator::operator()(ImageView<const cfloat> u, cfloat background, Scratch& s, double* split) const {
+  if (u.height() != h_ || u.width() != w_) fail_internal("focus metric: the field does not have the planned size");
+  if (metric_ == Metric::spectral_energy) {
+    if (s.amplitude.height() != fh_ || s.amplitude.width() != fw_)
+      fail_internal("focus metric: the scratch was made by another evaluator");
+    return spectral(u, background, s, split);
+  }
+  Moments m;
+  accumulate(u, background, roi_.y, roi_.x, roi_.y + roi_.height, roi_.x + roi_.width,
+             std::max(h_, w_) + 1, roi_.y, roi_.x, 1, &m, ImageView<float>(), s);
+  return metric_value(metric_, m);
+}
+
+} // namespace wavestack::focus
