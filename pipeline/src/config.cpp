@@ -331,12 +331,27 @@ Pipeline load_pipeline_text(const std::string& text, const std::string& file, co
     auto path = p.string("path");
     if (!path || path->empty()) p.fail("path", "missing: give the HDF5 file to write");
     pl.output.path = resolve(folder, *path);
+    pl.output.height = p.choice("height", {"none", "transmission", "reflection"}, "none");
+    if (pl.output.height == "transmission") {
+      auto dn = p.number("index_difference");
+      if (!dn || *dn == 0 || std::abs(*dn) > 3)
+        p.fail("index_difference", "height = \"transmission\" needs the index difference of sample and medium, "
+                                   "e.g. index_difference = 0.04");
+      pl.output.index_difference = *dn;
+    } else if (p.has("index_difference")) {
+      p.fail("index_difference", "only used with height = \"transmission\"");
+    }
     if (auto prods = p.strings("products")) {
-      for (const std::string& s : *prods)
-        if (s != "field" && s != "amplitude" && s != "phase" && s != "opd")
-          p.fail("products", "unknown product \"" + s + "\"; known: field, amplitude, phase, opd");
+      for (const std::string& s : *prods) {
+        if (s == "height" && pl.output.height == "none")
+          p.fail("products", "the height product needs height = \"transmission\" or \"reflection\" in [output]");
+        if (s != "field" && s != "amplitude" && s != "phase" && s != "opd" && s != "height")
+          p.fail("products", "unknown product \"" + s + "\"; known: field, amplitude, phase, opd, height");
+      }
       if (prods->empty()) p.fail("products", "empty: name at least one of field, amplitude, phase, opd");
       pl.output.products = *prods;
+    } else if (pl.output.height != "none") {
+      pl.output.products.push_back("height");
     }
     pl.output.compression = p.choice("compression", {"none", "deflate"}, "none");
     pl.output.level = static_cast<int>(p.number_in("level", 1, 9, 4));

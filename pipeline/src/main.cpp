@@ -7,11 +7,18 @@
 #include <CLI/CLI.hpp>
 
 #include <cstdio>
+#include <malloc.h>
 
 using namespace wavestack;
 using namespace wavestack::pipeline;
 
 int main(int argc, char** argv) {
+  // Frame-sized buffers (HDF5's chunk and conversion buffers) are allocated
+  // and freed for every frame; above glibc's default mmap threshold each one
+  // is a fresh mapping whose pages fault in again. Keeping them on the heap
+  // saves ~8% of a run on 2048x2048 frames (tests/bench).
+  mallopt(M_MMAP_THRESHOLD, 512 << 20);
+  mallopt(M_TRIM_THRESHOLD, 1024 << 20);
   CLI::App app{"wavestack: from off-axis hologram stacks in HDF5 to refocused phase, OPD and field maps"};
   app.require_subcommand(1);
   std::string stage_help = "stage types:\n";

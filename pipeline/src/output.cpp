@@ -68,6 +68,7 @@ OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
   amplitude_ = has(prods, "amplitude");
   phase_ = has(prods, "phase");
   opd_ = has(prods, "opd");
+  height_ = has(prods, "height");
   compress_ = pl.output.compression == "deflate";
   const Shape& s = plan.output;
   const bool unwrapped = s.kind == Kind::phase;
@@ -82,6 +83,17 @@ OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
   if (amplitude_) h_amplitude_ = image("amplitude", io::ImageType::f32, "1", {});
   if (phase_) h_phase_ = image("phase", io::ImageType::f32, "rad", {{"wrapped", wrapped}});
   if (opd_) h_opd_ = image("opd", io::ImageType::f32, "nm", {{"wrapped", wrapped}});
+  if (height_) {
+    // Transmission: h = OPD/Δn; reflection: h = OPD/2 (the light crosses the
+    // height twice) [common practice].
+    const bool refl = pl.output.height == "reflection";
+    height_per_nm_ = refl ? 0.5f : static_cast<float>(1.0 / pl.output.index_difference);
+    h_height_ = image("height", io::ImageType::f32, "nm",
+                      {{"wrapped", wrapped},
+                       {"mode", pl.output.height},
+                       {"formula", std::string(refl ? "h = OPD/2" : "h = OPD/index_difference")},
+                       {"index_difference", pl.output.index_difference}});
+  }
   // What the stages record per frame, and what they know once.
   for (const RecordSpec& r : plan.records) {
     io::Attributes extra;
@@ -128,8 +140,9 @@ void OutputFile::size_products(Products& p) const {
   const Shape& s = plan_.output;
   const std::size_t rows = s.height * std::max<std::size_t>(s.planes, 1);
   if (amplitude_ || pl_.output.preview_every >= 0) p.amplitude.resize(rows, s.width);
-  if (phase_ || opd_ || pl_.output.preview_every >= 0) p.phase.resize(rows, s.width);
-  if (opd_) p.opd.resize(rows, s.width);
+  if (phase_ || opd_ || height_ || pl_.output.preview_every >= 0) p.phase.resize(rows, s.width);
+  if (opd_ || height_) p.opd.resize(rows, s.width);
+  if (height_) p.height.resize(rows, s.width);
 }
 
 bool OutputFile::wants_preview(std::size_t i) const {
@@ -149,16 +162,19 @@ void OutputFile::compute(const FrameState& f, Products& p) const {
     else
       for (std::size_t i = 0; i < n; ++i) p.phase.data()[i] = std::arg(u[i]);
   }
-  if (opd_) {
+  if (opd_ || height_) {
     // OPD = φ·λ0/(2π), in nm (DESIGN.md: /opd is in nm).
     const float scale = static_cast<float>(f.field.grid.wavelength / (2.0 * std::numbers::pi) * 1e9);
     for (std::size_t i = 0; i < n; ++i) p.opd.data()[i] = p.phase.data()[i] * scale;
   }
+  if (height_)
+    for (std::size_t i = 0; i < n; ++i) p.height.data()[i] = p.opd.data()[i] * height_per_nm_;
   if (compress_) {
     if (field_) sink_.compress_frame(h_field_, f.field.data.view(), p.packed[0]);
     if (amplitude_) sink_.compress_frame(h_amplitude_, p.amplitude.view(), p.packed[1]);
     if (phase_) sink_.compress_frame(h_phase_, p.phase.view(), p.packed[2]);
     if (opd_) sink_.compress_frame(h_opd_, p.opd.view(), p.packed[3]);
+    if (height_) sink_.compress_frame(h_height_, p.height.view(), p.packed[4]);
   }
   if (wants_preview(f.output_index)) render_previews(f, p);
 }
@@ -207,11 +223,13 @@ void OutputFile::write(const FrameState& f, Products& p) {
     if (amplitude_) sink_.write_frame_compressed(h_amplitude_, i, p.packed[1].data(), p.packed[1].size());
     if (phase_) sink_.write_frame_compressed(h_phase_, i, p.packed[2].data(), p.packed[2].size());
     if (opd_) sink_.write_frame_compressed(h_opd_, i, p.packed[3].data(), p.packed[3].size());
+    if (height_) sink_.write_frame_compressed(h_height_, i, p.packed[4].data(), p.packed[4].size());
   } else {
     if (field_) sink_.write_frame(h_field_, i, f.field.data.view());
     if (amplitude_) sink_.write_frame(h_amplitude_, i, p.amplitude.view());
     if (phase_) sink_.write_frame(h_phase_, i, p.phase.view());
     if (opd_) sink_.write_frame(h_opd_, i, p.opd.view());
+    if (height_) sink_.write_frame(h_height_, i, p.height.view());
   }
   for (std::size_t k = 0; k < h_records_.size(); ++k) {
     const auto& v = f.records[k];

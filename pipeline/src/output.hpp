@@ -14,8 +14,8 @@ namespace wavestack::pipeline {
 
 /// Per-token product buffers, sized once.
 struct Products {
-  Image<float> amplitude, phase, opd;
-  std::vector<unsigned char> packed[4]; ///< compressed field, amplitude, phase, opd
+  Image<float> amplitude, phase, opd, height;
+  std::vector<unsigned char> packed[5]; ///< compressed field, amplitude, phase, opd, height
   std::vector<std::string> previews;    ///< PNGs written for this frame
 };
 
@@ -46,8 +46,9 @@ private:
   std::vector<io::FrameSink::Product> h_records_;
   std::vector<std::vector<double>> table_values_; ///< collected rows per table (frame column first)
   std::vector<std::string> csv_written_;
-  bool field_ = false, amplitude_ = false, phase_ = false, opd_ = false;
-  io::FrameSink::Product h_field_ = 0, h_amplitude_ = 0, h_phase_ = 0, h_opd_ = 0;
+  bool field_ = false, amplitude_ = false, phase_ = false, opd_ = false, height_ = false;
+  io::FrameSink::Product h_field_ = 0, h_amplitude_ = 0, h_phase_ = 0, h_opd_ = 0, h_height_ = 0;
+  float height_per_nm_ = 1; ///< height (nm) per nm of OPD
   bool compress_ = false;
   std::string preview_dir_;
   mutable std::mutex preview_mutex_;

@@ -17,7 +17,7 @@ std::string_view kind_name(Kind k) {
 
 namespace {
 // One line per stage: type, summary, keys (with defaults), factory.
-const std::array<StageInfo, 8> registry{{
+const std::array<StageInfo, 9> registry{{
     {"fringe", "condition the hologram: background normalisation, DC suppression, apodization",
      "dc = \"mean\" | \"local\" | \"none\" (mean); apodize = \"none\" | \"tukey\" (none); "
      "tukey_fraction = 0..1 (0.1); local_window = pixels (auto)",
@@ -42,6 +42,9 @@ const std::array<StageInfo, 8> registry{{
      "roi = [row, column, height, width]; track = true | false (false); window = planes (8); "
      "objects = true | false (false); refine_levels = 0..20 (5); min_snr (12)",
      stages::make_autofocus},
+    {"reference", "divide the field by the reconstructed object-free background: removes the instrument's wavefront",
+     "divide = \"field\" | \"phase\" (field); amplitude_floor = fraction of the mean (0.05); needs [input] background",
+     stages::make_reference},
     {"flatten", "fit and subtract the instrument's tilt and curvature over the background of the unwrapped phase",
      "model = \"polynomial\" | \"zernike\" (polynomial); degree = 0..8 (2); terms = [ANSI indices] (zernike); "
      "region = \"auto\" | \"all\" (auto: objects excluded per frame)",

@@ -18,7 +18,7 @@
 #include "wavestack/io/stack_writer.hpp"
 #include "wavestack/pipeline/config.hpp"
 #include "wavestack/pipeline/engine.hpp"
-#include "wavestack/propagate/angular_spectrum.hpp"
+#include "wavestack/propagate/propagator.hpp"
 
 #include <tbb/enumerable_thread_specific.h>
 #include <tbb/global_control.h>
@@ -32,6 +32,7 @@
 #include <cstring>
 #include <filesystem>
 #include <string>
+#include <malloc.h>
 #include <sys/resource.h>
 
 using namespace wavestack;
@@ -103,6 +104,10 @@ int main(int argc, char** argv) {
     }
   }
   if (threads <= 0) threads = tbb::info::default_concurrency();
+  // As the wavestack program does (pipeline/src/main.cpp): frame-sized
+  // buffers stay on the heap instead of being mapped afresh every frame.
+  mallopt(M_MMAP_THRESHOLD, 512 << 20);
+  mallopt(M_TRIM_THRESHOLD, 1024 << 20);
   try {
     fs::create_directories(dir);
     log::set_level(log::Level::warning);
@@ -134,8 +139,12 @@ int main(int argc, char** argv) {
 
     // The raw FFT executions of the same frames, with the same plans, on the
     // same number of threads, parallel over frames.
-    propagate::AngularSpectrum as(crop.height, crop.width, crop.grid, -8e-6);
-    const std::size_t ph = as.padded_height(), pw = as.padded_width();
+    // The same propagator the propagate stage builds (auto method and
+    // padding, band of the objective NA/lambda0), hence the same FFT sizes.
+    propagate::PropagatorOptions po;
+    po.max_frequency = pl.instrument.numerical_aperture / pl.instrument.wavelength;
+    auto prop = propagate::make_propagator(crop.height, crop.width, crop.grid, -8e-6, po);
+    const std::size_t ph = prop->padded_height(), pw = prop->padded_width();
     auto r2c = fft::plan_r2c(size, size);
     auto crop_inv = fft::plan_c2c(crop.height, crop.width, fft::Direction::backward, true);
     auto pad_fwd = fft::plan_c2c(ph, pw, fft::Direction::forward, false);

@@ -33,7 +33,7 @@ def expect(cond, what):
 
 
 def make_input(folder, frames=3, h=240, w=300, corrupt_frame=None, peak=1.5, defocus=0.0, absorb=0.0,
-               objects=None):
+               objects=None, aberration=0.0):
     """Off-axis holograms of a smooth phase object (Takeda 1982 model,
     offaxis_reference.py), uint16; optionally deflate-compressed chunks with
     one chunk's bytes overwritten to make that frame unreadable."""
@@ -60,9 +60,19 @@ def make_input(folder, frames=3, h=240, w=300, corrupt_frame=None, peak=1.5, def
                 obj = obj * ref.propagate(one, dy, dx, inst.wavelength, inst.medium_index, z)
         if defocus:
             obj = ref.propagate(obj, dy, dx, inst.wavelength, inst.medium_index, defocus)
+        if aberration:
+            # the instrument's own curvature, aberration rad at the frame corner
+            rr = ((yy - h * dy / 2) ** 2 + (xx - w * dx / 2) ** 2) / ((h * dy / 2) ** 2 + (w * dx / 2) ** 2)
+            obj = obj * np.exp(1j * aberration * rr)
         inten = ref.record(obj, refw)
         counts = np.clip(np.round(inten / inten.mean() * 1800 + rng.normal(0, 2, inten.shape)), 0, 4095)
         stack[k] = counts
+    if aberration:
+        rr = ((yy - h * dy / 2) ** 2 + (xx - w * dx / 2) ** 2) / ((h * dy / 2) ** 2 + (w * dx / 2) ** 2)
+        inten = ref.record(np.exp(1j * aberration * rr), refw)
+        bg = np.clip(np.round(inten / inten.mean() * 1800), 0, 4095).astype(np.uint16)
+        with h5py.File(os.path.join(folder, "blank.h5"), "w") as f:
+            f.create_dataset("holograms", data=bg[None])
     path = os.path.join(folder, "holo.h5")
     with h5py.File(path, "w") as f:
         if corrupt_frame is None:
@@ -209,6 +219,18 @@ def case_errors(binary, d):
     code, _, err = run(binary, "run", p)
     expect(code == 2 and f"key.toml:{line}:1" in err and 'unknown key "radious"' in err,
            f"unknown key exits 2 naming line {line} and the key: {code} {err.strip()}")
+    # stages in an impossible order -> 2 naming the stage
+    text = pipeline_text(inst).replace('[[stage]]\ntype = "sideband"', '[[stage]]\ntype = "unwrap"\n[[stage]]\ntype = "sideband"')
+    code, _, err = run(binary, "run", write(d, "order.toml", text))
+    expect(code == 2 and "stage 2 (unwrap)" in err and "sideband" in err, f"unwrap before sideband exits 2: {err.strip()}")
+    # a transmission height without the index difference -> 2
+    text = pipeline_text(inst).replace('[output]\n', '[output]\nheight = "transmission"\n')
+    code, _, err = run(binary, "run", write(d, "height.toml", text))
+    expect(code == 2 and "index_difference" in err, f"height without index difference exits 2: {err.strip()}")
+    # the reference stage without a background -> 2
+    text = pipeline_text(inst).replace('[[stage]]\ntype = "propagate"', '[[stage]]\ntype = "reference"\n[[stage]]\ntype = "propagate"')
+    code, _, err = run(binary, "run", write(d, "ref.toml", text))
+    expect(code == 2 and "background" in err, f"reference without background exits 2: {err.strip()}")
     # missing dataset -> 3, names the file and the dataset
     p = write(d, "ds.toml", pipeline_text(inst).replace('dataset = "/holograms"', 'dataset = "/frames"'))
     code, _, err = run(binary, "run", p)
@@ -404,7 +426,34 @@ def case_measure(binary, d):
     expect(os.path.exists(os.path.join(d, "out_wavefront_zernike_table.csv")), "Zernike CSV")
 
 
-CASES = {"autofocus": case_autofocus, "measure": case_measure, "zstack": case_zstack, "unwrap": case_unwrap, "layout": case_layout, "compression": case_compression, "errors": case_errors,
+def case_reference(binary, d):
+    # Reference-hologram compensation: the instrument's curvature (3 rad at
+    # the corners) recorded in both the object and the blank hologram is
+    # divided out [common practice: double-exposure compensation]; the
+    # reflection height is OPD/2.
+    _, inst, _ = make_input(d, frames=2, peak=1.5, aberration=3.0)
+    base = pipeline_text(inst, distance='"0 um"').replace('dataset = "/holograms"',
+                                                       'dataset = "/holograms"\nbackground = "blank.h5"')
+    with_ref = base.replace('[[stage]]\ntype = "propagate"', '[[stage]]\ntype = "reference"\n\n[[stage]]\ntype = "propagate"')
+    with_ref = with_ref.replace('[output]\npath = "out.h5"', '[output]\npath = "ref.h5"\nheight = "reflection"')
+    with_ref = with_ref.replace('products = ["field", "amplitude", "phase", "opd"]',
+                                'products = ["field", "amplitude", "phase", "opd", "height"]')
+    for name, text in [("plain", base), ("ref", with_ref)]:
+        code, _, err = run(binary, "run", write(d, f"{name}.toml", text), "-q")
+        expect(code == 0, f"{name} run ({err.strip()})")
+    with h5py.File(os.path.join(d, "out.h5")) as a, h5py.File(os.path.join(d, "ref.h5")) as b:
+        def edge_spread(ph):  # phase spread along the frame border, away from the object
+            ring = np.concatenate([ph[2:6].ravel(), ph[-6:-2].ravel(), ph[:, 2:6].ravel(), ph[:, -6:-2].ravel()])
+            ring = np.angle(np.exp(1j * (ring - np.angle(np.mean(np.exp(1j * ring))))))
+            return ring.std()
+        s0, s1 = edge_spread(a["phase"][0]), edge_spread(b["phase"][0])
+        expect(s0 > 0.5, f"without the reference the curvature shows ({s0:.3f} rad)")
+        expect(s1 < 0.05, f"with the reference the border is flat ({s1:.3f} rad)")
+        expect(np.allclose(b["height"][...], b["opd"][...] / 2, atol=1e-4), "reflection height = OPD/2")
+        expect(b["height"].attrs["units"] == "nm" and b["height"].attrs["mode"] == "reflection", "height attributes")
+
+
+CASES = {"reference": case_reference, "autofocus": case_autofocus, "measure": case_measure, "zstack": case_zstack, "unwrap": case_unwrap, "layout": case_layout, "compression": case_compression, "errors": case_errors,
          "atomic": case_atomic, "threads": case_threads, "check": case_check}
 
 if __name__ == "__main__":

@@ -16,22 +16,8 @@
 #include <thread>
 #include <vector>
 
-// Count operator new calls on this thread, so a test can assert that apply()
-// allocates nothing. (FFTW and Image allocate with malloc/aligned_alloc, not
-// with operator new; the data-pointer checks below cover Image.)
-namespace {
-thread_local std::size_t new_calls = 0;
-}
-void* operator new(std::size_t n) {
-  ++new_calls;
-  if (void* p = std::malloc(n ? n : 1)) return p;
-  throw std::bad_alloc();
-}
-void* operator new[](std::size_t n) { return ::operator new(n); }
-void operator delete(void* p) noexcept { std::free(p); }
-void operator delete(void* p, std::size_t) noexcept { std::free(p); }
-void operator delete[](void* p) noexcept { std::free(p); }
-void operator delete[](void* p, std::size_t) noexcept { std::free(p); }
+#include "count_allocations.hpp"
+using wavestack_test::new_calls;
 
 using namespace wavestack;
 using namespace propagate_test;

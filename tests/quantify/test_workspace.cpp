@@ -11,21 +11,8 @@
 #include <new>
 #include <vector>
 
-// Count operator new calls on this thread (std::vector uses it; Image
-// storage uses aligned_alloc, covered by the pointer checks).
-namespace {
-thread_local std::size_t new_calls = 0;
-}
-void* operator new(std::size_t n) {
-  ++new_calls;
-  if (void* p = std::malloc(n ? n : 1)) return p;
-  throw std::bad_alloc();
-}
-void* operator new[](std::size_t n) { return ::operator new(n); }
-void operator delete(void* p) noexcept { std::free(p); }
-void operator delete(void* p, std::size_t) noexcept { std::free(p); }
-void operator delete[](void* p) noexcept { std::free(p); }
-void operator delete[](void* p, std::size_t) noexcept { std::free(p); }
+#include "count_allocations.hpp"
+using wavestack_test::new_calls;
 
 using namespace wavestack;
 using namespace wavestack::quantify;

@@ -13,6 +13,7 @@ std::unique_ptr<Stage> make_propagate(Params& p);
 std::unique_ptr<Stage> make_unwrap(Params& p);
 std::unique_ptr<Stage> make_autofocus(Params& p);
 std::unique_ptr<Stage> make_flatten(Params& p);
+std::unique_ptr<Stage> make_reference(Params& p);
 std::unique_ptr<Stage> make_zernike(Params& p);
 std::unique_ptr<Stage> make_drymass(Params& p);
 

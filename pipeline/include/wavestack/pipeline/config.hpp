@@ -41,6 +41,10 @@ struct OutputSpec {
   std::string compression = "none"; ///< "none" or "deflate"
   int level = 4;                    ///< deflate level 1..9
   int preview_every = 0;            ///< 0 = first frame only, k = every k-th, -1 = none
+  /// Height product: "none", "transmission" (h = OPD/index_difference) or
+  /// "reflection" (h = OPD/2).
+  std::string height = "none";
+  double index_difference = 0;
 };
 
 struct RunOptions {
