@@ -6,7 +6,7 @@ the pipeline file writer, the wavestack runner and the output reader.
 Nothing here imports wavestack code: every number is recomputed from the
 published formulas named below.
 
-Sources and status tags (see /work/shared/REFERENCES.md):
+Sources and status tags (see shared/REFERENCES.md (the project's shared notes)):
   * Fourier-transform fringe demodulation: M. Takeda, H. Ina, S. Kobayashi,
     JOSA 72(1), 156-160 (1982) [from memory].
   * Off-axis digital holographic microscopy, spatial filtering of the +1

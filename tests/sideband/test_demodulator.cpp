@@ -47,19 +47,7 @@ using sideband_test::Scene;
 
 namespace {
 
-std::vector<Scene> size_cases() {
-  std::vector<Scene> v;
-  Scene s;
-  s.h = 256, s.w = 256, s.ky = 43.37, s.kx = 58.59;
-  v.push_back(s);
-  s.h = 300, s.w = 480, s.ky = 51.37, s.kx = 110.59; // non-square
-  v.push_back(s);
-  s.h = 257, s.w = 384, s.ky = 44.71, s.kx = 87.23; // odd rows
-  v.push_back(s);
-  s.h = 240, s.w = 201, s.dx = 0.26e-6, s.ky = -37.66, s.kx = 50.41; // odd columns, rectangular pixels
-  v.push_back(s);
-  return v;
-}
+using sideband_test::size_cases;
 
 struct PhaseError {
   double rms = 0;       ///< rad, piston removed

@@ -62,7 +62,12 @@ double parse_length(std::string_view text) {
   return *v;
 }
 
-std::string format_length(double metres) {
+std::string format_length(double metres, int digits) {
+  char buf[64];
+  if (!std::isfinite(metres)) {
+    std::snprintf(buf, sizeof buf, "%g", metres);
+    return buf;
+  }
   const double a = std::fabs(metres);
   const char* unit = "m";
   double scale = 1.0;
@@ -70,8 +75,7 @@ std::string format_length(double metres) {
   else if (a < 1e-6) { unit = "nm"; scale = 1e-9; }
   else if (a < 1e-3) { unit = "um"; scale = 1e-6; }
   else if (a < 1.0) { unit = "mm"; scale = 1e-3; }
-  char buf[64];
-  std::snprintf(buf, sizeof buf, "%.6g %s", metres / scale, unit);
+  std::snprintf(buf, sizeof buf, "%.*g %s", digits, metres / scale, unit);
   return buf;
 }
 

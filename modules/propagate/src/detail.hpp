@@ -79,19 +79,7 @@ inline std::string number(double v, int digits = 6) {
 }
 
 /// A length with 4 significant digits and the most readable unit.
-inline std::string length(double metres) {
-  if (!std::isfinite(metres)) return number(metres);
-  const double a = std::fabs(metres);
-  const char* unit = "m";
-  double scale = 1.0;
-  if (a == 0.0) { unit = "um"; scale = 1e-6; }
-  else if (a < 1e-6) { unit = "nm"; scale = 1e-9; }
-  else if (a < 1e-3) { unit = "um"; scale = 1e-6; }
-  else if (a < 1.0) { unit = "mm"; scale = 1e-3; }
-  char buf[48];
-  std::snprintf(buf, sizeof buf, "%.4g %s", metres / scale, unit);
-  return buf;
-}
+inline std::string length(double metres) { return format_length(metres, 4); }
 
 /// A spatial frequency in cycles/um, 4 significant digits.
 inline std::string frequency(double per_metre) { return number(per_metre * 1e-6, 4) + " cycles/um"; }

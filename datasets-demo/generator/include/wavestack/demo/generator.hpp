@@ -5,7 +5,7 @@
 // end-to-end tests; see datasets-demo/README.md for the scene and its truth.
 //
 // Physics of one frame (all object-space quantities, DESIGN.md physical
-// model; formulas and sources in /work/shared/REFERENCES.md):
+// model; formulas and sources in shared/REFERENCES.md (the project's shared notes)):
 //  1. Object at focus in the projection approximation:
 //       O0 = A·exp(iφ),  φ = 2π/λ0 · Σ Δn_k·t_k(x, y),
 //       A = exp(−2π/λ0 · Σ κ_k·t_k(x, y)),

@@ -15,7 +15,8 @@ double parse_length(std::string_view text);
 /// Same, but returns nullopt instead of throwing; `why` receives the reason.
 std::optional<double> try_parse_length(std::string_view text, std::string* why = nullptr);
 
-/// Format metres with the most readable unit, e.g. 1.25e-5 -> "12.5 um".
-std::string format_length(double metres);
+/// Format metres with the most readable unit and `digits` significant
+/// digits, e.g. 1.25e-5 -> "12.5 um". Non-finite values print as numbers.
+std::string format_length(double metres, int digits = 6);
 
 } // namespace wavestack
