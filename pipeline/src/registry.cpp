@@ -47,7 +47,8 @@ const std::array<StageInfo, 9> registry{{
      stages::make_reference},
     {"flatten", "fit and subtract the instrument's tilt and curvature over the background of the unwrapped phase",
      "model = \"polynomial\" | \"zernike\" (polynomial); degree = 0..8 (2); terms = [ANSI indices] (zernike); "
-     "region = \"auto\" | \"all\" (auto: objects excluded per frame)",
+     "region = \"auto\" | \"all\" | \"mask\" (auto: objects excluded per frame); mask = \"file.h5:/dataset\" "
+     "(non-zero = background, size of the phase maps)",
      stages::make_flatten},
     {"zernike", "wavefront report of the unwrapped phase: ANSI Zernike coefficients (nm), PV, RMS, Strehl",
      "terms = 3..231 (15); center_row, center_column, radius = pixels (default: largest inscribed circle)",

@@ -423,6 +423,26 @@ def case_measure(binary, d):
         # the bump's peak: 3 rad = 3 lambda0 / (2 pi) of optical path [derived]
         expect(abs(big["peak_opd"] - 3 * inst.wavelength * 1e9 / (2 * np.pi)) < 5, f"peak OPD {big['peak_opd']:.1f} nm")
     expect(os.path.exists(os.path.join(d, "out_objects_mass.csv")), "dry-mass CSV")
+    # flatten over a background given as a mask file: exactly its pixels are fitted
+    with h5py.File(os.path.join(d, "out.h5")) as f:
+        h, w = f["phase"].shape[1:]
+    mask = np.zeros((h, w), np.uint8)
+    mask[:10] = mask[-10:] = 1
+    mask[:, :10] = mask[:, -10:] = 1
+    with h5py.File(os.path.join(d, "mask.h5"), "w") as f:
+        f["mask"] = mask
+    text = pipeline_text(inst, out="masked.h5", distance='"0 um"',
+                         extra_stage='[[stage]]\ntype = "unwrap"\n[[stage]]\ntype = "flatten"\nregion = "mask"\nmask = "mask.h5:/mask"\n')
+    code, _, err = run(binary, "run", write(d, "mask.toml", text), "-q")
+    expect(code == 0, f"flatten with a mask ({err.strip()})")
+    with h5py.File(os.path.join(d, "masked.h5")) as f:
+        n = f["compensation/background_pixels"][...]
+        expect(np.all(n == mask.sum()), f"fitted over the mask's {mask.sum()} pixels ({n})")
+    bad = np.zeros((h + 1, w), np.uint8)
+    with h5py.File(os.path.join(d, "mask.h5"), "w") as f:
+        f["mask"] = bad
+    code, _, err = run(binary, "run", write(d, "mask.toml", text), "-q")
+    expect(code == 3 and "mask" in err, f"a mask of the wrong size exits 3: {code} {err.strip()}")
     expect(os.path.exists(os.path.join(d, "out_wavefront_zernike_table.csv")), "Zernike CSV")
 
 

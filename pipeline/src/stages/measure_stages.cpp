@@ -8,12 +8,14 @@
 // Each is phase -> phase; only flatten changes the phase.
 #include "stages.hpp"
 #include "wavestack/core/log.hpp"
+#include "wavestack/io/frame_source.hpp"
 #include "wavestack/quantify/objects.hpp"
 #include "wavestack/wavefront/background.hpp"
 #include "wavestack/wavefront/report.hpp"
 #include "wavestack/wavefront/zernike.hpp"
 
 #include <cmath>
+#include <filesystem>
 #include <numbers>
 #include <sstream>
 
@@ -48,14 +50,41 @@ public:
     opt_.model = model == "zernike" ? wavefront::BackgroundModel::zernike : wavefront::BackgroundModel::polynomial;
     opt_.degree = static_cast<int>(p.number_in("degree", 0, 8, 2));
     opt_.zernike_terms = ansi_list(p, "terms", opt_.zernike_terms);
-    const std::string region = p.choice("region", {"auto", "all"}, "auto");
-    opt_.region = region == "all" ? wavefront::BackgroundRegion::all : wavefront::BackgroundRegion::automatic;
+    const std::string region = p.choice("region", {"auto", "all", "mask"}, "auto");
+    opt_.region = region == "all"    ? wavefront::BackgroundRegion::all
+                  : region == "mask" ? wavefront::BackgroundRegion::mask
+                                     : wavefront::BackgroundRegion::automatic;
+    if (auto m = p.string("mask")) {
+      // "file.h5:/dataset", relative to the pipeline file; non-zero = background.
+      const io::DatasetSpec spec = io::split_dataset_spec(*m);
+      std::filesystem::path f = spec.file;
+      if (f.is_relative()) f = std::filesystem::path(p.file()).parent_path() / f;
+      mask_file_ = f.lexically_normal().string();
+      mask_dataset_ = spec.dataset.empty() ? "/mask" : spec.dataset;
+    }
+    if (opt_.region == wavefront::BackgroundRegion::mask && mask_file_.empty())
+      p.fail("mask", "region = \"mask\" needs mask = \"file.h5:/dataset\" (non-zero pixels are background)");
   }
   std::string_view type() const override { return "flatten"; }
   Kind consumes() const override { return Kind::phase; }
   Kind produces() const override { return Kind::phase; }
   Shape plan(const Shape& in, PlanContext&) override {
     single_plane(in, "flatten");
+    if (!mask_file_.empty()) {
+      io::FrameSource src = io::FrameSource::open(mask_file_, mask_dataset_);
+      if (src.height() != in.height || src.width() != in.width) {
+        ErrorContext c = in_file(mask_file_);
+        c.dataset = mask_dataset_;
+        fail_input("the background mask is " + std::to_string(src.height()) + "x" + std::to_string(src.width()) +
+                       " but the phase maps are " + std::to_string(in.height) + "x" + std::to_string(in.width) +
+                       " (the size after the sideband crop)",
+                   c);
+      }
+      Image<float> m(in.height, in.width);
+      src.read(0, m.view());
+      opt_.mask.resize(in.height, in.width);
+      for (std::size_t i = 0; i < m.size(); ++i) opt_.mask.data()[i] = m.data()[i] != 0 ? 1 : 0;
+    }
     comp_ = std::make_unique<wavefront::BackgroundCompensator>(in.height, in.width, opt_);
     std::string names;
     for (int k = 0; k < comp_->terms(); ++k) {
@@ -98,6 +127,7 @@ public:
 
 private:
   wavefront::BackgroundOptions opt_;
+  std::string mask_file_, mask_dataset_;
   std::unique_ptr<wavefront::BackgroundCompensator> comp_;
   std::string names_;
   Notes notes_;
