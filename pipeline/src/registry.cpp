@@ -26,7 +26,7 @@ const std::array<StageInfo, 9> registry{{
      "order = \"auto\" | \"+1\" | \"-1\" (auto); radius = \"auto\" | fraction of the carrier distance "
      "(auto: NA/wavelength, else 1/3); soft_edge = fraction of the radius (0.1)",
      stages::make_sideband},
-    {"propagate", "refocus the field by the angular spectrum method (band-limited, zero-padded)",
+    {"propagate", "refocus the field: angular spectrum (band-limited, zero-padded), Fresnel or single-FFT Fresnel",
      "distance = \"<length>\"; padding = \"auto\" | \"none\" | factor; "
      "method = \"auto\" | \"angular-spectrum\" | \"fresnel\" | \"fresnel-single-fft\" (auto); "
      "or distances = { from, to, step } / a list for a z-stack; distance = \"focus\" after autofocus",
@@ -40,7 +40,8 @@ const std::array<StageInfo, 9> registry{{
                   "propagate with distance = \"focus\" applies it)",
      "from, to, step = \"<length>\" (required); metric = \"auto\" | \"tamura-gradient\" | ... (auto); "
      "roi = [row, column, height, width]; track = true | false (false); window = planes (8); "
-     "objects = true | false (false); refine_levels = 0..20 (5); min_snr (12)",
+     "objects = true | false (false); refine_levels = 0..20 (5); min_snr (12); "
+     "taper_fraction = 0..0.45 (0.1, soft window at the frame border)",
      stages::make_autofocus},
     {"reference", "divide the field by the reconstructed object-free background: removes the instrument's wavefront",
      "divide = \"field\" | \"phase\" (field); amplitude_floor = fraction of the mean (0.05); needs [input] background",
