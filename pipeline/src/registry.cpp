@@ -34,7 +34,8 @@ const std::array<StageInfo, 9> registry{{
     {"unwrap", "unwrap the phase of the field: field -> continuous phase (rad)",
      "method = \"reliability\" | \"least-squares\" (reliability); wrap_around = \"none\" | \"x\" | \"y\" | "
      "\"both\"; weights = \"none\" | \"amplitude\" | \"phase-variance\" (least squares); "
-     "continuity = \"first-frame\" | \"none\"; residue_warning = residues per loop (0.001)",
+     "continuity = \"first-frame\" | \"none\"; residue_warning = residues per loop (0.001); "
+     "mask = \"file.h5:/dataset\" (reliability: non-zero pixels are unwrapped, the others keep their wrapped value)",
      stages::make_unwrap},
     {"autofocus", "score a sweep of planes per frame and find the sharp one (the field stays; "
                   "propagate with distance = \"focus\" applies it)",

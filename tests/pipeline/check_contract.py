@@ -311,6 +311,24 @@ def case_unwrap(binary, d):
         # time-lapse continuity: both frames have the same background level
         b0 = np.median(f["phase"][0][:5]); b1 = np.median(f["phase"][1][:5])
         expect(abs(b0 - b1) < 0.5, f"background piston held across frames ({b0:.3f}, {b1:.3f})")
+        h, w = f["phase"].shape[1:]
+    # a mask: pixels outside it keep their wrapped value (Herraez et al. 2002
+    # with masks, as scikit-image's masked arrays do)
+    mask = np.ones((h, w), np.uint8)
+    mask[:, : w // 4] = 0
+    with h5py.File(os.path.join(d, "umask.h5"), "w") as f:
+        f["mask"] = mask
+    p = write(d, "pm.toml", pipeline_text(inst, out="masked.h5", distance='"0 um"',
+                                          extra_stage='[[stage]]\ntype = "unwrap"\nmask = "umask.h5"\n'))
+    code, _, err = run(binary, "run", p, "-q")
+    expect(code == 0, f"unwrap with a mask ({err.strip()})")
+    with h5py.File(os.path.join(d, "masked.h5")) as f:
+        ph, u = f["phase"][0], f["field"][0]
+        out = ~mask.astype(bool)
+        expect(np.allclose(ph[out], np.angle(u)[out], atol=1e-5), "masked-out pixels keep the wrapped phase")
+        inside = ph[:, w // 4:]
+        peak = inside.max() - np.median(inside[:5])
+        expect(abs(peak - 9.0) < 0.15, f"inside the mask the bump is unwrapped ({peak:.3f} rad)")
 
 
 def case_zstack(binary, d):

@@ -6,6 +6,7 @@
 //   drymass  - segment objects on the OPD map and tabulate area, OPD and
 //              dry mass per object.
 // Each is phase -> phase; only flatten changes the phase.
+#include "mask_file.hpp"
 #include "stages.hpp"
 #include "wavestack/core/log.hpp"
 #include "wavestack/io/frame_source.hpp"
@@ -54,15 +55,8 @@ public:
     opt_.region = region == "all"    ? wavefront::BackgroundRegion::all
                   : region == "mask" ? wavefront::BackgroundRegion::mask
                                      : wavefront::BackgroundRegion::automatic;
-    if (auto m = p.string("mask")) {
-      // "file.h5:/dataset", relative to the pipeline file; non-zero = background.
-      const io::DatasetSpec spec = io::split_dataset_spec(*m);
-      std::filesystem::path f = spec.file;
-      if (f.is_relative()) f = std::filesystem::path(p.file()).parent_path() / f;
-      mask_file_ = f.lexically_normal().string();
-      mask_dataset_ = spec.dataset.empty() ? "/mask" : spec.dataset;
-    }
-    if (opt_.region == wavefront::BackgroundRegion::mask && mask_file_.empty())
+    mask_ = MaskFile::from(p); // non-zero = background
+    if (opt_.region == wavefront::BackgroundRegion::mask && !mask_.given())
       p.fail("mask", "region = \"mask\" needs mask = \"file.h5:/dataset\" (non-zero pixels are background)");
   }
   std::string_view type() const override { return "flatten"; }
@@ -70,21 +64,7 @@ public:
   Kind produces() const override { return Kind::phase; }
   Shape plan(const Shape& in, PlanContext&) override {
     single_plane(in, "flatten");
-    if (!mask_file_.empty()) {
-      io::FrameSource src = io::FrameSource::open(mask_file_, mask_dataset_);
-      if (src.height() != in.height || src.width() != in.width) {
-        ErrorContext c = in_file(mask_file_);
-        c.dataset = mask_dataset_;
-        fail_input("the background mask is " + std::to_string(src.height()) + "x" + std::to_string(src.width()) +
-                       " but the phase maps are " + std::to_string(in.height) + "x" + std::to_string(in.width) +
-                       " (the size after the sideband crop)",
-                   c);
-      }
-      Image<float> m(in.height, in.width);
-      src.read(0, m.view());
-      opt_.mask.resize(in.height, in.width);
-      for (std::size_t i = 0; i < m.size(); ++i) opt_.mask.data()[i] = m.data()[i] != 0 ? 1 : 0;
-    }
+    if (mask_.given()) opt_.mask = mask_.load(in.height, in.width, "background");
     comp_ = std::make_unique<wavefront::BackgroundCompensator>(in.height, in.width, opt_);
     std::string names;
     for (int k = 0; k < comp_->terms(); ++k) {
@@ -127,7 +107,7 @@ public:
 
 private:
   wavefront::BackgroundOptions opt_;
-  std::string mask_file_, mask_dataset_;
+  MaskFile mask_;
   std::unique_ptr<wavefront::BackgroundCompensator> comp_;
   std::string names_;
   Notes notes_;

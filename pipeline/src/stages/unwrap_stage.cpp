@@ -1,5 +1,6 @@
 // Stage "unwrap": wrapped phase of the field -> continuous phase
 // (modules/unwrap), with a residue count per frame and time-lapse continuity.
+#include "mask_file.hpp"
 #include "stages.hpp"
 #include "wavestack/core/log.hpp"
 #include "wavestack/unwrap/continuity.hpp"
@@ -30,6 +31,9 @@ public:
     lopt_.congruent = p.boolean("congruent").value_or(false);
     max_density_ = p.number_in("residue_warning", 0.0, 1.0, 1e-3);
     continuity_ = p.choice("continuity", {"first-frame", "none"}, "first-frame");
+    mask_file_ = MaskFile::from(p); // non-zero = unwrap this pixel
+    if (mask_file_.given() && method_ != "reliability")
+      p.fail("mask", "a mask applies to method = \"reliability\"; least squares takes weights");
   }
   std::string_view type() const override { return "unwrap"; }
   Kind consumes() const override { return Kind::field; }
@@ -39,6 +43,7 @@ public:
     h_ = in.height;
     w_ = in.width;
     planes_ = std::max<std::size_t>(in.planes, 1);
+    if (mask_file_.given()) mask_ = mask_file_.load(h_, w_, "unwrap");
     if (method_ == "reliability") rel_ = std::make_unique<unwrap::ReliabilityUnwrapper>(h_, w_, ropt_);
     else ls_ = std::make_unique<unwrap::LeastSquaresUnwrapper>(h_, w_, lopt_);
     reference_ = std::numeric_limits<double>::quiet_NaN(); // set by the first (probe) frame
@@ -77,7 +82,9 @@ public:
         for (std::size_t x = 0; x < w_; ++x) ws.wrapped(y, x) = std::arg(field(y, x));
       auto out = f.phase.view().sub(z * h_, 0, h_, w_);
       residue_total += unwrap::count_residues(ws.wrapped.view()).total();
-      if (rel_) {
+      if (rel_ && !mask_.empty()) {
+        rel_->apply(ws.wrapped.view(), mask_.view(), out, ws.rel);
+      } else if (rel_) {
         rel_->apply(ws.wrapped.view(), out, ws.rel);
       } else if (weights_ == "none") {
         ls_->apply(ws.wrapped.view(), out, ws.ls);
@@ -123,6 +130,8 @@ private:
   }
 
   std::string method_, weights_, continuity_;
+  MaskFile mask_file_;
+  Image<std::uint8_t> mask_;
   unwrap::ReliabilityOptions ropt_;
   unwrap::LeastSquaresOptions lopt_;
   double max_density_ = 1e-3;
