@@ -155,9 +155,12 @@ bool OutputFile::wants_preview(std::size_t i) const {
 void OutputFile::compute(const FrameState& f, Products& p) const {
   const std::size_t n = f.field.data.size();
   const cfloat* u = f.field.data.data();
-  if (!p.amplitude.empty())
+  // Amplitude and phase are only computed when a product or this frame's
+  // preview needs them (the buffers exist for previews of other frames too).
+  const bool preview = wants_preview(f.output_index);
+  if (amplitude_ || preview)
     for (std::size_t i = 0; i < n; ++i) p.amplitude.data()[i] = std::abs(u[i]);
-  if (!p.phase.empty()) {
+  if (phase_ || opd_ || height_ || preview) {
     if (f.kind == Kind::phase) std::copy(f.phase.begin(), f.phase.end(), p.phase.begin());
     else
       for (std::size_t i = 0; i < n; ++i) p.phase.data()[i] = std::arg(u[i]);
@@ -176,7 +179,7 @@ void OutputFile::compute(const FrameState& f, Products& p) const {
     if (opd_) sink_.compress_frame(h_opd_, p.opd.view(), p.packed[3]);
     if (height_) sink_.compress_frame(h_height_, p.height.view(), p.packed[4]);
   }
-  if (wants_preview(f.output_index)) render_previews(f, p);
+  if (preview) render_previews(f, p);
 }
 
 void OutputFile::render_previews(const FrameState& f, Products& p) const {

@@ -43,7 +43,6 @@ leakage of the non-integer carrier and float32 arithmetic.
 Exit status 0 = pass, 1 = fail. Deterministic (fixed seed); a few seconds.
 """
 
-import argparse
 import os
 import sys
 import tempfile
@@ -95,20 +94,9 @@ def synthesize():
 
 
 def main():
-    ap = argparse.ArgumentParser(description=__doc__.split("\n")[1])
-    ap.add_argument("wavestack", nargs="?", help="path of the wavestack program")
-    ap.add_argument("--selfcheck", action="store_true",
-                    help="reconstruct with the numpy reference instead of wavestack")
-    ap.add_argument("--keep", metavar="DIR", help="write the files into DIR and keep them")
-    ap.add_argument("--max-ramp", type=float, default=None, metavar="BINS",
-                    help="largest residual carrier ramp accepted, in output bins (default 0.6: "
-                         "the crop is centred on the nearest bin; a sideband stage that removes the "
-                         "sub-bin carrier leaves a few hundredths)")
-    args = ap.parse_args()
+    args = ref.check_arguments(__doc__)
     if args.max_ramp is not None:
         globals()["RAMP_LIMIT"] = args.max_ramp
-    if not args.selfcheck and not args.wavestack:
-        ap.error("give the wavestack program, or --selfcheck")
 
     m = ref.carrier_margins(INST, CARRIER)
     by, bx = CARRIER.bins(H, W, INST.dx, INST.dx)

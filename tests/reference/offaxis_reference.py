@@ -464,6 +464,25 @@ def check_common_attrs(out: Output, inst: Instrument, shape_in, plane: float,
         problems.append(f"/phase differs from arg(/field) by up to {ph_err:.2e} rad")
 
 
+def check_arguments(doc: str):
+    """Command line shared by the end-to-end checks: WAVESTACK | --selfcheck,
+    --keep DIR, --max-ramp BINS."""
+    import argparse
+    ap = argparse.ArgumentParser(description=doc.split("\n")[1])
+    ap.add_argument("wavestack", nargs="?", help="path of the wavestack program")
+    ap.add_argument("--selfcheck", action="store_true",
+                    help="reconstruct with the numpy reference instead of wavestack")
+    ap.add_argument("--keep", metavar="DIR", help="write the files into DIR and keep them")
+    ap.add_argument("--max-ramp", type=float, default=None, metavar="BINS",
+                    help="largest residual carrier ramp accepted, in output bins (default 0.6: "
+                         "the crop is centred on the nearest bin; a sideband stage that removes the "
+                         "sub-bin carrier leaves a few hundredths)")
+    args = ap.parse_args()
+    if not args.selfcheck and not args.wavestack:
+        ap.error("give the wavestack program, or --selfcheck")
+    return args
+
+
 def finish(problems: list) -> int:
     if problems:
         for p in problems:
