@@ -5,8 +5,11 @@
 #include "wavestack/core/units.hpp"
 #include "wavestack/pipeline/config.hpp"
 #include "wavestack/pipeline/engine.hpp"
+#include "wavestack/io/frame_sink.hpp"
+#include "wavestack/io/hdf5.hpp"
 
 #include <cstdio>
+#include <filesystem>
 #include <unistd.h>
 
 namespace wavestack::pipeline {
@@ -38,6 +41,22 @@ void print_plan(const Pipeline& pl, const PlanSummary& s) {
 }
 } // namespace
 
+/// --resume after a kill that came once the output was renamed: the final
+/// file is there, made by this very run, and there is no partial file.
+bool already_complete(const Pipeline& pl, const PlanSummary& s) {
+  std::error_code ec;
+  if (std::filesystem::exists(io::FrameSink::partial_path(pl.output.path), ec) ||
+      !std::filesystem::exists(pl.output.path, ec))
+    return false;
+  try {
+    return io::read_string_attribute(pl.output.path, "/", "pipeline") == pl.text() &&
+           io::read_string_attribute(pl.output.path, "/", "source_fingerprint") == s.source_fingerprint &&
+           io::read_string_attribute(pl.output.path, "/", "frames_selected") == s.selection;
+  } catch (const Error&) {
+    return false; // not a result of this run: run it
+  }
+}
+
 int cmd_check(const CheckArgs& a) {
   Pipeline pl = load_pipeline(a.pipeline, overrides_of(a.sets, ""));
   Engine engine(pl);
@@ -49,17 +68,21 @@ int cmd_check(const CheckArgs& a) {
 
 int cmd_run(const RunArgs& a) {
   if (a.quiet) log::set_level(log::Level::warning);
-  if (a.resume)
-    fail_config("--resume is not available in this version; rerun without it (the partial file is kept)");
   Pipeline pl = load_pipeline(a.pipeline, overrides_of(a.sets, a.output));
   Engine engine(pl);
   const PlanSummary& s = engine.plan(false, a.frames);
   if (!a.quiet) print_plan(pl, s);
+  if (a.resume && already_complete(pl, s)) {
+    if (!a.quiet) std::printf("%s is already complete; nothing to resume\n", pl.output.path.c_str());
+    return 0;
+  }
   RunSettings rs;
   rs.threads = a.threads;
   rs.progress = !a.quiet && isatty(fileno(stderr));
+  rs.resume = a.resume;
   RunReport r = engine.run(rs);
   if (!a.quiet) {
+    if (r.resumed_at > 0) std::printf("resumed at frame %zu of %zu\n", r.resumed_at, s.frames.size());
     std::printf("wrote %zu frames to %s in %.2f s (%.1f frames/s)\n", r.frames, r.output.c_str(), r.seconds,
                 r.frames / std::max(r.seconds, 1e-9));
     for (const std::string& p : r.previews) std::printf("preview %s\n", p.c_str());

@@ -29,7 +29,14 @@ struct RefocusArgs {
   bool quiet = false, print = false;
 };
 
+struct MergeArgs {
+  std::string output;
+  std::vector<std::string> shards;
+  bool overwrite = false, quiet = false;
+};
+
 int cmd_run(const RunArgs& a);
+int cmd_merge(const MergeArgs& a);
 int cmd_refocus(const RefocusArgs& a);
 /// The pipeline text `refocus` runs (for --print and tests).
 std::string refocus_pipeline_text(const RefocusArgs& a);

@@ -11,7 +11,9 @@
 #include <cmath>
 #include <filesystem>
 #include <fstream>
+#include <limits>
 #include <sstream>
+#include <utility>
 
 namespace fs = std::filesystem;
 
@@ -27,7 +29,10 @@ std::optional<std::int64_t> parse_int(std::string_view s) {
 }
 
 std::string resolve(const std::string& folder, const std::string& path) {
-  if (path.empty() || fs::path(path).is_absolute()) return path;
+  // Normal form either way: "new/../raw.h5" must be seen as raw.h5 even
+  // before the folder "new" exists (raw data is never overwritten).
+  if (path.empty()) return path;
+  if (fs::path(path).is_absolute()) return fs::path(path).lexically_normal().string();
   return (fs::path(folder) / path).lexically_normal().string();
 }
 
@@ -68,6 +73,7 @@ void apply_override(toml::table& root, const Override& o) {
       if (!n || !stages || *n < 1 || static_cast<std::size_t>(*n) > stages->size())
         fail_config("expected stage.N.key with N from 1 to " + std::to_string(stages ? stages->size() : 0), ctx);
       t = (*stages)[static_cast<std::size_t>(*n - 1)].as_table();
+      if (!t) fail_config("stage " + parts[i + 1] + " is not a [[stage]] table", ctx);
       ++i;
       continue;
     }
@@ -103,8 +109,26 @@ void check_plausible(Params& p, std::string_view key, double v, double lo, doubl
   }
 }
 
+/// A bare number where a length belongs: name the unit that makes it
+/// plausible (wavelength = 532 -> "532 nm"), not just any unit.
+void refuse_bare_length(Params& p, std::string_view key, double lo, double hi) {
+  const toml::node* n = p.has(key) ? p.node(key) : nullptr;
+  if (!n || !n->is_number()) return;
+  const double v = n->value<double>().value_or(0.0);
+  static constexpr std::pair<const char*, double> units[] = {{"nm", 1e-9}, {"um", 1e-6}, {"mm", 1e-3}, {"m", 1.0}};
+  for (auto [unit, scale] : units) {
+    if (v * scale >= lo && v * scale <= hi) {
+      std::ostringstream s;
+      s << "expected a length with a unit such as \"" << v << " " << unit << "\", saw the bare number " << v;
+      p.fail(key, s.str());
+    }
+  }
+}
+
 Instrument read_instrument(Params& p) {
   Instrument ins;
+  refuse_bare_length(p, "wavelength", 100e-9, 20e-6);
+  refuse_bare_length(p, "pixel_pitch", 0.1e-6, 1e-3);
   auto wl = p.length("wavelength");
   auto pitch = p.length("pixel_pitch");
   auto mag = p.number("magnification");
@@ -149,17 +173,22 @@ FrameRange FrameRange::parse(const std::string& text) {
   }
   parts.push_back(cur);
   auto bad = [&]() -> FrameRange {
-    fail_config("expected a frame range start:stop[:step] such as \"0:\" or \"10:20:2\", saw \"" + text + "\"");
+    fail_config("the frame range \"" + text + "\" is not of the form start:stop[:step] such as \"0:\" or \"10:20:2\"");
   };
   if (parts.size() == 1) {
     // A single index selects one frame.
     auto v = parse_int(parts[0]);
-    if (!v || *v < 0) return bad();
+    if (!v || *v < 0 || *v == std::numeric_limits<std::int64_t>::max()) return bad(); // stop = v + 1
     r.start = *v;
     r.stop = *v + 1;
     return r;
   }
   if (parts.size() > 3) return bad();
+  // "5:2" selects nothing whatever the data: a mistake in the range itself.
+  auto start = parts[0].empty() ? std::optional<std::int64_t>(0) : parse_int(parts[0]);
+  auto stop = parse_int(parts[1]);
+  if (start && stop && *stop <= *start)
+    fail_config("the frame range \"" + text + "\" is empty: its stop must be greater than its start");
   if (!parts[0].empty()) {
     auto v = parse_int(parts[0]);
     if (!v || *v < 0) return bad();
@@ -181,7 +210,10 @@ FrameRange FrameRange::parse(const std::string& text) {
 std::vector<std::int64_t> FrameRange::select(std::int64_t count) const {
   std::vector<std::int64_t> out;
   const std::int64_t end = stop ? std::min(*stop, count) : count;
-  for (std::int64_t i = start; i < end; i += step) out.push_back(i);
+  for (std::int64_t i = start; i < end; i += step) {
+    out.push_back(i);
+    if (end - i <= step) break; // i + step would pass the end (or overflow)
+  }
   return out;
 }
 
@@ -207,6 +239,7 @@ std::string Pipeline::text() const {
 
 Pipeline load_pipeline(const std::string& path, const std::vector<Override>& overrides) {
   if (!fs::exists(path)) fail_config("pipeline file does not exist", in_file(path));
+  if (fs::is_directory(path)) fail_config("this is a folder, not a pipeline file", in_file(path));
   const std::string text = read_file(path, ErrorKind::config);
   const std::string folder = fs::path(path).parent_path().string();
   return load_pipeline_text(text, path, folder.empty() ? "." : folder, overrides);
@@ -283,7 +316,8 @@ Pipeline load_pipeline_text(const std::string& text, const std::string& file, co
       // Keys in the pipeline file win over the profile.
       for (auto&& [k, v] : *src) {
         if (k.str() == "name" || k.str() == "description") continue;
-        if (!ins.contains(k.str())) ins.insert(k, v);
+        // Moved, not copied: a copied toml++ node forgets its file and line.
+        if (!ins.contains(k.str())) ins.insert(k, std::move(v));
       }
       ins.erase("profile");
     }
@@ -312,8 +346,13 @@ Pipeline load_pipeline_text(const std::string& text, const std::string& file, co
       const StageInfo* info = find_stage(*type);
       if (!info) {
         std::string known;
-        for (const StageInfo& s : stage_registry()) known += (known.empty() ? "" : ", ") + std::string(s.type);
-        p.fail("type", "unknown stage type \"" + *type + "\"; known types: " + known);
+        std::vector<std::string_view> types;
+        for (const StageInfo& s : stage_registry()) {
+          known += (known.empty() ? "" : ", ") + std::string(s.type);
+          types.push_back(s.type);
+        }
+        const std::string hint = did_you_mean_in(*type, types);
+        p.fail("type", "unknown stage type \"" + *type + "\"" + (hint.empty() ? "; known types: " + known : hint));
       }
       Params sp(st, file, "stage " + std::to_string(i) + " (" + *type + ")");
       sp.string("type");

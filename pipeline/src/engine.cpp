@@ -94,6 +94,29 @@ std::string wisdom_path(const RunOptions& run) {
   return (base / "wavestack" / ("fftw-wisdom-" + std::string(host))).string();
 }
 
+/// Shape, type and a checksum (FNV-1a) of the raw bytes of the first,
+/// middle and last frame: tells the same input data from other data without
+/// reading all of it, wherever the file was copied to.
+std::string fingerprint(io::FrameSource& src) {
+  std::vector<unsigned char> raw(src.raw_frame_bytes());
+  std::uint64_t h = 14695981039346656037ull;
+  const std::size_t n = src.count();
+  for (std::size_t f : {std::size_t{0}, n / 2, n - 1}) {
+    try {
+      src.read_raw(f, raw.data());
+    } catch (const Error&) {
+      // A damaged frame outside the selection must not stop the run; the
+      // fingerprint then says so, the same way every time.
+      std::fill(raw.begin(), raw.end(), 0xff);
+    }
+    for (unsigned char b : raw) h = (h ^ b) * 1099511628211ull;
+  }
+  char buf[160];
+  std::snprintf(buf, sizeof buf, "%zux%zux%zu %s fnv1a64=%016llx", n, src.height(), src.width(),
+                std::string(src.dtype_name()).c_str(), static_cast<unsigned long long>(h));
+  return buf;
+}
+
 } // namespace
 
 struct Engine::Impl {
@@ -181,13 +204,20 @@ struct Engine::Impl {
                      std::to_string(source->count()) + " in the dataset",
                  c);
     }
-    if (!dry) load_background();
+    summary.selection = range.str();
+    if (!dry) {
+      load_background();
+      summary.source_fingerprint = fingerprint(*source);
+    }
 
-    // Probes: the first selected frame and, when given, the background; both
-    // are carried through each stage right after it is planned.
+    // Probes: the first frame of the pipeline file's own selection and, when
+    // given, the background; both are carried through each stage right
+    // after it is planned. Not the first frame of --frames: every shard of a
+    // run must plan exactly as the whole run does.
     FrameState probe, probe_bg;
     if (!dry) {
-      probe.source_index = summary.frames.front();
+      const auto own = pl.input.frames.select(static_cast<std::int64_t>(source->count()));
+      probe.source_index = own.empty() ? summary.frames.front() : own.front();
       probe.hologram.resize(source->height(), source->width());
       source->read(static_cast<std::size_t>(probe.source_index), probe.hologram.view());
       if (has_background) probe_bg.hologram = background;
@@ -210,12 +240,20 @@ struct Engine::Impl {
                         std::string(kind_name(shape.kind)) +
                         (st.consumes() == Kind::field && shape.kind == Kind::hologram
                              ? "; put a sideband stage before it"
-                             : ""),
+                         : st.consumes() == Kind::phase ? "; put an unwrap stage before it"
+                                                        : ""),
                     where);
       try {
         shape = st.plan(shape, ctx);
       } catch (const Error& e) {
-        throw e.with(where);
+        // Bad data found while planning is in the probe: the first selected frame.
+        ErrorContext probe_at;
+        const std::string& about = e.context().file;
+        if (e.kind() == ErrorKind::input && !dry && !has_background && (about.empty() || about == pl.input.path)) {
+          probe_at.dataset = pl.input.dataset;
+          probe_at.frame = probe.source_index;
+        }
+        throw e.with(where).with(probe_at);
       }
       summary.shapes.push_back(shape);
       for (auto& [k, v] : st.notes()) summary.notes["stage" + std::to_string(i + 1) + "." + k] = v;
@@ -262,8 +300,32 @@ struct Engine::Impl {
     const int tokens = settings.tokens > 0 ? settings.tokens : pl.run.tokens > 0 ? pl.run.tokens : 2 * threads;
     tbb::global_control limit(tbb::global_control::max_allowed_parallelism, static_cast<std::size_t>(threads));
 
-    OutputFile out(pl, summary);
+    // A failed run leaves OUT.partial for --resume (frame_sink.hpp): say so.
+    auto kept = [&](const Error& e) {
+      const std::string partial = io::FrameSink::partial_path(pl.output.path);
+      std::error_code ec;
+      if (!fs::exists(partial, ec)) return e;
+      return Error(e.kind(), e.message() + "; the partial file " + partial + " is kept for --resume", e.context());
+    };
+    OutputFile out = [&] {
+      try {
+        return OutputFile(pl, summary, settings.resume);
+      } catch (const Error& e) {
+        if (e.kind() != ErrorKind::output) throw; // refusals say what to do themselves
+        throw kept(e);
+      }
+    }();
     const std::size_t n = summary.frames.size();
+    // Resumed: the frames already done are not written again. They are
+    // carried through the stages without writing when a sequential stage
+    // needs their state, or when they have a preview to draw.
+    const std::size_t start = out.resume_from();
+    bool carry_all = false;
+    for (auto& st : pl.stages) carry_all = carry_all || st->sequential();
+    std::vector<std::size_t> todo;
+    todo.reserve(n);
+    for (std::size_t i = 0; i < n; ++i)
+      if (i >= start || carry_all || out.wants_preview(i)) todo.push_back(i);
 
     // Token pool: all frame buffers exist before the first frame moves.
     std::vector<std::unique_ptr<Token>> pool;
@@ -288,6 +350,7 @@ struct Engine::Impl {
     const bool progress = settings.progress;
     const auto t0 = std::chrono::steady_clock::now();
     std::size_t next = 0, written = 0;
+    const std::size_t to_write = n - start;
 
     auto add_frame = [&](const Error& e, std::int64_t frame) {
       ErrorContext c;
@@ -300,15 +363,15 @@ struct Engine::Impl {
     // stage in a serial filter of its own -> products (parallel) -> write
     // (serial). The products and compression join the last parallel run.
     auto read = [&](tbb::flow_control& fc) -> Token* {
-      if (next >= n) {
+      if (next >= todo.size()) {
         fc.stop();
         return nullptr;
       }
       Token* t = nullptr;
       free_tokens.pop(t);
       FrameState& f = t->frame;
-      f.output_index = next;
-      f.source_index = summary.frames[next];
+      f.output_index = todo[next];
+      f.source_index = summary.frames[f.output_index];
       f.kind = Kind::hologram;
       f.planes = 0;
       f.distance = 0;
@@ -330,6 +393,7 @@ struct Engine::Impl {
         Workspaces& ws = workspaces.local();
         try {
           if (convert) io::FrameSource::convert_raw(source->dtype(), t->raw.data(), t->frame.hologram.view());
+          if (convert) source->check_frame(static_cast<std::size_t>(t->frame.source_index), t->frame.hologram.view());
           for (std::size_t i = first; i < last; ++i) {
             pl.stages[i]->process(t->frame, ws[i].get());
             t->frame.kind = pl.stages[i]->produces();
@@ -342,6 +406,10 @@ struct Engine::Impl {
       };
     };
     auto write = [&](Token* t) {
+      if (t->frame.output_index < start) { // done before the resume
+        free_tokens.push(t);
+        return;
+      }
       try {
         out.write(t->frame, t->products);
       } catch (const Error& e) {
@@ -352,9 +420,9 @@ struct Engine::Impl {
       if (progress) {
         double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
         double fps = written / std::max(s, 1e-9);
-        std::fprintf(stderr, "\r  %zu/%zu frames, %.1f frames/s, %.0f s left   ", written, n, fps,
-                     (n - written) / std::max(fps, 1e-9));
-        if (written == n) std::fprintf(stderr, "\n");
+        std::fprintf(stderr, "\r  %zu/%zu frames, %.1f frames/s, %.0f s left   ", start + written, n, fps,
+                     (to_write - written) / std::max(fps, 1e-9));
+        if (written == to_write) std::fprintf(stderr, "\n");
       }
     };
 
@@ -376,12 +444,16 @@ struct Engine::Impl {
       begin = i + 1;
     }
     for (auto& st : pl.stages) st->reset();
-    tbb::parallel_pipeline(static_cast<std::size_t>(tokens),
-                           chain & tbb::make_filter<Token*, void>(tbb::filter_mode::serial_in_order, write));
-
-    out.finish();
+    try {
+      tbb::parallel_pipeline(static_cast<std::size_t>(tokens),
+                             chain & tbb::make_filter<Token*, void>(tbb::filter_mode::serial_in_order, write));
+      out.finish();
+    } catch (const Error& e) {
+      throw kept(e);
+    }
     RunReport r;
     r.frames = written;
+    r.resumed_at = start;
     r.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     r.output = pl.output.path;
     r.previews = out.previews();

@@ -5,7 +5,9 @@
 #include "wavestack/pipeline/registry.hpp"
 
 #include <CLI/CLI.hpp>
+#include <hdf5.h>
 
+#include <csignal>
 #include <cstdio>
 #include <malloc.h>
 
@@ -19,6 +21,13 @@ int main(int argc, char** argv) {
   // saves ~8% of a run on 2048x2048 frames (tests/bench).
   mallopt(M_MMAP_THRESHOLD, 512 << 20);
   mallopt(M_TRIM_THRESHOLD, 1024 << 20);
+  // Past a file size limit (ulimit -f) write() then fails with EFBIG and the
+  // output error is reported, instead of the process dying by SIGXFSZ.
+  std::signal(SIGXFSZ, SIG_IGN);
+  // An output file whose close failed (disk full) stays open inside HDF5,
+  // and HDF5's exit handler would crash closing it again; the .partial
+  // file is left for --resume either way.
+  H5dont_atexit();
   CLI::App app{"wavestack: from off-axis hologram stacks in HDF5 to refocused phase, OPD and field maps"};
   app.require_subcommand(1);
   std::string stage_help = "stage types:\n";
@@ -34,7 +43,7 @@ int main(int argc, char** argv) {
   run_cmd->add_option("-o,--output", run.output, "output HDF5 file (overrides [output] path)");
   run_cmd->add_option("--set", run.sets, "override a key, e.g. --set stage.3.distance=\"-5 um\"");
   run_cmd->add_option("--frames", run.frames, "frame selection start:stop[:step] (overrides [input] frames)");
-  run_cmd->add_option("--threads", run.threads, "worker threads (default: all cores)")->check(CLI::PositiveNumber);
+  run_cmd->add_option("--threads", run.threads, "worker threads (default: all cores)")->check(CLI::Range(1, 1024));
   run_cmd->add_flag("--resume", run.resume, "continue a partial output left by a killed run");
   run_cmd->add_flag("-q,--quiet", run.quiet, "print only warnings and errors");
 
@@ -51,9 +60,17 @@ int main(int argc, char** argv) {
   rf_cmd->add_option("--order", rf.order, "sideband order: auto, +1 or -1")->check(CLI::IsMember({"auto", "+1", "-1"}));
   rf_cmd->add_option("--method", rf.method, "auto, angular-spectrum, fresnel or fresnel-single-fft")
       ->check(CLI::IsMember({"auto", "angular-spectrum", "fresnel", "fresnel-single-fft"}));
-  rf_cmd->add_option("--threads", rf.threads, "worker threads (default: all cores)")->check(CLI::PositiveNumber);
+  rf_cmd->add_option("--threads", rf.threads, "worker threads (default: all cores)")->check(CLI::Range(1, 1024));
   rf_cmd->add_flag("--print", rf.print, "print the equivalent pipeline file and stop");
   rf_cmd->add_flag("-q,--quiet", rf.quiet, "print only warnings and errors");
+
+  MergeArgs merge;
+  auto* merge_cmd = app.add_subcommand(
+      "merge", "join the outputs of shards run with --frames into one file (virtual datasets, no frame copied)");
+  merge_cmd->add_option("output", merge.output, "merged output file")->required();
+  merge_cmd->add_option("shards", merge.shards, "shard output files, in any order")->required();
+  merge_cmd->add_flag("--overwrite", merge.overwrite, "replace an existing merged file");
+  merge_cmd->add_flag("-q,--quiet", merge.quiet, "print only warnings and errors");
 
   CheckArgs check;
   auto* check_cmd = app.add_subcommand("check", "validate a pipeline file and show the planned shapes; reads no frames");
@@ -74,12 +91,18 @@ int main(int argc, char** argv) {
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
-    const int code = app.exit(e);
-    return code == 0 ? 0 : 2;
+    if (e.get_exit_code() == 0) return app.exit(e); // --help
+    // One line like every other error (CLI11 would add a second one).
+    std::string what = e.what();
+    for (char& c : what)
+      if (c == '\n') c = ' ';
+    std::fprintf(stderr, "wavestack: error: %s (see wavestack --help)\n", what.c_str());
+    return 2;
   }
   try {
     if (*run_cmd) return cmd_run(run);
     if (*check_cmd) return cmd_check(check);
+    if (*merge_cmd) return cmd_merge(merge);
     if (*rf_cmd) return cmd_refocus(rf);
     if (*inspect_cmd) return cmd_inspect(inspect_target);
     if (*demo_cmd) return cmd_demo(demo);

@@ -5,10 +5,14 @@
 #include "wavestack/core/units.hpp"
 #include "wavestack/render/preview.hpp"
 
+#include <algorithm>
 #include <cerrno>
+#include <chrono>
+#include <optional>
 #include <cmath>
 #include <cstring>
 #include <limits>
+#include <memory>
 #include <cstdio>
 #include <filesystem>
 #include <numbers>
@@ -37,32 +41,99 @@ std::string table_csv_path(const std::string& output_path, const std::string& ta
   return (p.parent_path() / (p.stem().string() + "_" + t + ".csv")).string();
 }
 
-OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
-    : pl_(pl), plan_(plan), sink_([&] {
-        // Never write over the raw data (DESIGN.md: raw data is never overwritten).
-        if (io::same_file(pl.output.path, pl.input.path) || pl.output.path == pl.input.path)
-          fail_config("the output path is the input file; choose another [output] path so the raw data stays intact",
-                      in_file(pl.output.path));
-        if (!pl.input.background_path.empty() && io::same_file(pl.output.path, pl.input.background_path))
-          fail_config("the output path is the background file; choose another [output] path",
-                      in_file(pl.output.path));
-        // Make the output folder when it is missing (like the previews').
-        const fs::path parent = fs::path(pl.output.path).parent_path();
-        if (!parent.empty()) {
-          std::error_code ec;
-          fs::create_directories(parent, ec);
-          if (ec) fail_output("cannot create the output folder: " + ec.message(), in_file(parent.string()));
-        }
-        io::SinkInfo info;
-        info.software_version = WAVESTACK_VERSION;
-        info.pipeline = pl.text();
-        info.source_file = pl.input.path;
-        info.source_dataset = pl.input.dataset;
-        io::CompressionOptions c;
-        c.method = pl.output.compression == "deflate" ? io::Compression::deflate : io::Compression::none;
-        c.level = pl.output.level;
-        return io::FrameSink::create(pl.output.path, plan.frames.size(), info, c);
-      }()) {
+namespace {
+
+/// The first line where two texts differ, for a resume refusal.
+std::string first_difference(const std::string& a, const std::string& b) {
+  std::size_t line = 1, i = 0;
+  while (i < a.size() && i < b.size() && a[i] == b[i]) {
+    if (a[i] == '\n') ++line;
+    ++i;
+  }
+  auto line_at = [](const std::string& t, std::size_t pos) {
+    const std::size_t from = t.rfind('\n', pos == 0 ? 0 : pos - 1);
+    const std::size_t begin = from == std::string::npos || pos == 0 ? 0 : from + 1;
+    const std::size_t stop = t.find('\n', begin);
+    return "'" + t.substr(begin, stop == std::string::npos ? std::string::npos : stop - begin) + "'";
+  };
+  return "line " + std::to_string(line) + ": " + line_at(b, i) + " was " + line_at(a, i);
+}
+
+/// --resume continues only the very same run: same pipeline text, same
+/// input data, same frame selection.
+void check_same_run(const io::FrameSink& sink, const Pipeline& pl, const PlanSummary& plan) {
+  const ErrorContext c = in_file(sink.partial_file());
+  const std::string old_text = sink.root_text_attribute("pipeline");
+  if (old_text != pl.text())
+    fail_config("cannot resume: the pipeline differs from the one the partial file was started with (" +
+                    first_difference(old_text, pl.text()) + "); rerun without --resume to start over",
+                c);
+  const std::string old_print = sink.root_text_attribute("source_fingerprint");
+  if (old_print != plan.source_fingerprint)
+    fail_input("cannot resume: the input data differ from the data the partial file was started with (was " +
+                   old_print + ", now " + plan.source_fingerprint + "); rerun without --resume to start over",
+               c);
+  const std::string old_sel = sink.root_text_attribute("frames_selected");
+  if (old_sel != plan.selection || sink.frames() != plan.frames.size())
+    fail_config("cannot resume: the partial file was started for the frames \"" + old_sel + "\", this run selects \"" +
+                    plan.selection + "\"; give the same --frames or rerun without --resume",
+                c);
+}
+
+io::FrameSink open_sink(const Pipeline& pl, const PlanSummary& plan, bool resume, bool& resumed) {
+  // Never write over the raw data (DESIGN.md: raw data is never overwritten).
+  if (io::same_file(pl.output.path, pl.input.path) || pl.output.path == pl.input.path)
+    fail_config("the output path is the input file; choose another [output] path so the raw data stays intact",
+                in_file(pl.output.path));
+  if (!pl.input.background_path.empty() && io::same_file(pl.output.path, pl.input.background_path))
+    fail_config("the output path is the background file; choose another [output] path", in_file(pl.output.path));
+  // Make the output folder when it is missing (like the previews').
+  const fs::path parent = fs::path(pl.output.path).parent_path();
+  if (!parent.empty()) {
+    std::error_code ec;
+    fs::create_directories(parent, ec);
+    if (ec) fail_output("cannot create the output folder: " + ec.message(), in_file(parent.string()));
+  }
+  if (pl.output.preview_every >= 0) { // before the partial file exists, so a refusal leaves nothing
+    std::error_code pec;
+    fs::create_directories(preview_folder(pl.output.path), pec);
+    if (pec) fail_output("cannot create the preview folder: " + pec.message(), in_file(preview_folder(pl.output.path)));
+  }
+  resumed = false;
+  const std::string partial = io::FrameSink::partial_path(pl.output.path);
+  std::error_code ec;
+  if (resume && fs::exists(partial, ec)) {
+    std::optional<io::FrameSink> old;
+    try {
+      old.emplace(io::FrameSink::open_for_resume(partial));
+    } catch (const Error& e) {
+      // Killed before the file's structure reached the disk: nothing of it
+      // can be trusted, and nothing was done yet that it could keep.
+      log::warn("the partial output cannot be continued (" + std::string(e.what()) + "); starting the run over");
+    }
+    if (old) {
+      check_same_run(*old, pl, plan);
+      resumed = true;
+      return std::move(*old);
+    }
+  } else if (resume) {
+    log::info("there is no partial output " + partial + " to continue; starting the run");
+  }
+  io::SinkInfo info;
+  info.software_version = WAVESTACK_VERSION;
+  info.pipeline = pl.text();
+  info.source_file = pl.input.path;
+  info.source_dataset = pl.input.dataset;
+  io::CompressionOptions c;
+  c.method = pl.output.compression == "deflate" ? io::Compression::deflate : io::Compression::none;
+  c.level = pl.output.level;
+  return io::FrameSink::create(pl.output.path, plan.frames.size(), info, c);
+}
+
+} // namespace
+
+OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan, bool resume)
+    : pl_(pl), plan_(plan), sink_(open_sink(pl, plan, resume, resumed_)) {
   const auto& prods = pl.output.products;
   field_ = has(prods, "field");
   amplitude_ = has(prods, "amplitude");
@@ -77,6 +148,7 @@ OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
   // has its planes in /focus/planes instead.
   const bool plane = !s.plane_varies && s.planes == 0;
   auto image = [&](const char* name, io::ImageType type, const char* units, const io::Attributes& extra) {
+    if (resumed_) return existing(name);
     return sink_.add_stack(name, type, s.planes, s.height, s.width, units, s.grid, plane, extra);
   };
   if (field_) h_field_ = image("field", io::ImageType::complex64, "1", {});
@@ -98,15 +170,19 @@ OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
   for (const RecordSpec& r : plan.records) {
     io::Attributes extra;
     for (const auto& [k, v] : r.attributes) extra.push_back({k, v});
+    if (resumed_) {
+      h_records_.push_back(existing(r.name));
+      continue;
+    }
     h_records_.push_back(r.columns ? sink_.add_matrix(r.name, io::ValueType::f64, plan.frames.size(), r.columns,
                                                       r.units, extra)
                                    : sink_.add_vector(r.name, io::ValueType::f64, plan.frames.size(), r.units, extra));
   }
   for (const ConstantSpec& c : plan.constants) {
-    auto h = sink_.add_vector(c.name, io::ValueType::f64, c.values.size(), c.units);
-    sink_.write_all(h, c.values.data(), c.values.size());
+    if (resumed_) continue; // written when the partial file was made
+    sink_.add_constant(c.name, c.values, c.units);
   }
-  table_values_.resize(plan.tables.size());
+  table_values_.assign(plan.tables.size(), 0);
   // What the run was, in attributes a reader's script can use directly.
   const Instrument& ins = pl.instrument;
   sink_.set_attribute("/", "wavelength", ins.wavelength);
@@ -114,7 +190,8 @@ OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
   sink_.set_attribute("/", "magnification", ins.magnification);
   sink_.set_attribute("/", "numerical_aperture", ins.numerical_aperture);
   sink_.set_attribute("/", "medium_index", ins.medium_index);
-  sink_.set_attribute("/", "frames_selected", plan.frames.size() == 0 ? std::string() : pl.input.frames.str());
+  sink_.set_attribute("/", "frames_selected", plan.selection);
+  sink_.set_attribute("/", "source_fingerprint", plan.source_fingerprint);
   if (!pl.profile_file.empty()) sink_.set_attribute("/", "instrument_profile", pl.profile_file);
   for (const auto& [k, v] : plan.notes) sink_.set_attribute("/", k, v);
   if (!pl.input.background_path.empty())
@@ -126,6 +203,25 @@ OutputFile::OutputFile(const Pipeline& pl, const PlanSummary& plan)
     fs::create_directories(preview_dir_, ec);
     if (ec) fail_output("cannot create the preview folder: " + ec.message(), in_file(preview_dir_));
   }
+  if (resumed_) {
+    start_ = sink_.done_prefix();
+    RunJournal::Contents kept;
+    journal_.emplace(RunJournal::resume(pl.output.path, start_, plan.tables.size(), kept));
+    table_values_ = std::move(kept.table_values);
+    resumed_warnings_ = std::move(kept.warnings);
+  } else {
+    journal_.emplace(RunJournal::create(pl.output.path));
+  }
+  // The structure of the file is on disk before the first frame is.
+  sink_.checkpoint();
+  last_checkpoint_ = std::chrono::steady_clock::now();
+}
+
+io::FrameSink::Product OutputFile::existing(const std::string& name) const {
+  if (!sink_.has_product(name))
+    fail_output("cannot resume: the partial file has no dataset " + name + "; rerun without --resume",
+                in_file(sink_.partial_file()));
+  return sink_.product(name);
 }
 
 OutputFile::~OutputFile() {
@@ -239,14 +335,23 @@ void OutputFile::write(const FrameState& f, Products& p) {
     if (plan_.records[k].columns) sink_.write_row(h_records_[k], i, v.data(), v.size());
     else sink_.write_value(h_records_[k], i, v[0]);
   }
+  // Table rows go to the journal, not to memory: a long run's tables can
+  // outgrow it. finish() reads them back.
   for (std::size_t k = 0; k < table_values_.size(); ++k) {
     const std::size_t cols = plan_.tables[k].columns.size();
     const auto& rows = f.table_rows[k];
+    row_scratch_.clear();
     for (std::size_t r = 0; r + cols <= rows.size(); r += cols) {
-      table_values_[k].push_back(static_cast<double>(f.source_index));
-      table_values_[k].insert(table_values_[k].end(), rows.begin() + static_cast<long>(r),
-                              rows.begin() + static_cast<long>(r + cols));
+      row_scratch_.push_back(static_cast<double>(f.source_index));
+      row_scratch_.insert(row_scratch_.end(), rows.begin() + static_cast<long>(r),
+                          rows.begin() + static_cast<long>(r + cols));
     }
+    journal_->add_rows(i, k, row_scratch_.data(), row_scratch_.size());
+    table_values_[k] += row_scratch_.size();
+  }
+  for (const std::string& w : log::warnings_since(journaled_warnings_)) {
+    journal_->add_warning(i, w);
+    ++journaled_warnings_;
   }
   // With autofocus, /focus/distance is the focus found (DESIGN.md), NaN when
   // unsure; a z-stack has no single plane.
@@ -255,54 +360,107 @@ void OutputFile::write(const FrameState& f, Products& p) {
                               : f.planes                  ? nan
                                                           : f.field.grid.plane);
   sink_.mark_done(i, f.source_index);
+  const auto now = std::chrono::steady_clock::now();
+  if (now - last_checkpoint_ > std::chrono::milliseconds(250)) {
+    sink_.checkpoint();
+    last_checkpoint_ = now;
+  }
 }
 
 namespace {
+
 // CSV beside the HDF5 file, for spreadsheets and scripts that do not read
 // HDF5; written under a temporary name and renamed like the HDF5 file.
-void write_csv(const std::string& path, const TableSpec& t, const std::vector<double>& values) {
-  const std::string tmp = path + ".partial";
-  std::FILE* f = std::fopen(tmp.c_str(), "w");
-  if (!f) fail_output("cannot write the table: " + std::string(std::strerror(errno)), in_file(tmp));
-  std::fprintf(f, "frame");
-  for (std::size_t c = 0; c < t.columns.size(); ++c)
-    std::fprintf(f, ",%s%s%s%s", t.columns[c].c_str(), t.units[c].empty() || t.units[c] == "1" ? "" : " (",
-                 t.units[c] == "1" ? "" : t.units[c].c_str(), t.units[c].empty() || t.units[c] == "1" ? "" : ")");
-  std::fprintf(f, "\n");
-  const std::size_t cols = t.columns.size() + 1;
-  for (std::size_t r = 0; r + cols <= values.size(); r += cols) {
-    for (std::size_t c = 0; c < cols; ++c) {
-      const double v = values[r + c];
-      const bool integer = c == 0 || t.integer[c - 1];
-      if (integer) std::fprintf(f, "%s%lld", c ? "," : "", static_cast<long long>(std::llround(v)));
-      else std::fprintf(f, "%s%.9g", c ? "," : "", v);
-    }
-    std::fprintf(f, "\n");
+class CsvTable {
+public:
+  CsvTable(std::string path, const TableSpec& t) : path_(std::move(path)), tmp_(path_ + ".partial"), t_(t) {
+    f_ = std::fopen(tmp_.c_str(), "w");
+    if (!f_) fail_output("cannot write the table: " + std::string(std::strerror(errno)), in_file(tmp_));
+    std::fprintf(f_, "frame");
+    for (std::size_t c = 0; c < t.columns.size(); ++c)
+      std::fprintf(f_, ",%s%s%s%s", t.columns[c].c_str(), t.units[c].empty() || t.units[c] == "1" ? "" : " (",
+                   t.units[c] == "1" ? "" : t.units[c].c_str(), t.units[c].empty() || t.units[c] == "1" ? "" : ")");
+    std::fprintf(f_, "\n");
   }
-  if (std::fclose(f) != 0 || std::rename(tmp.c_str(), path.c_str()) != 0)
-    fail_output("cannot write the table: " + std::string(std::strerror(errno)), in_file(path));
-}
+  CsvTable(const CsvTable&) = delete;
+  CsvTable& operator=(const CsvTable&) = delete;
+  ~CsvTable() {
+    if (f_) std::fclose(f_);
+  }
+  void rows(const double* values, std::size_t count) {
+    const std::size_t cols = t_.columns.size() + 1;
+    for (std::size_t r = 0; r + cols <= count; r += cols) {
+      for (std::size_t c = 0; c < cols; ++c) {
+        const double v = values[r + c];
+        const bool integer = c == 0 || t_.integer[c - 1];
+        if (integer) std::fprintf(f_, "%s%lld", c ? "," : "", static_cast<long long>(std::llround(v)));
+        else std::fprintf(f_, "%s%.9g", c ? "," : "", v);
+      }
+      std::fprintf(f_, "\n");
+    }
+  }
+  void finish() {
+    const bool closed = std::fclose(f_) == 0;
+    f_ = nullptr;
+    if (!closed || std::rename(tmp_.c_str(), path_.c_str()) != 0)
+      fail_output("cannot write the table: " + std::string(std::strerror(errno)), in_file(path_));
+  }
+  const std::string& path() const { return path_; }
+
+private:
+  std::string path_, tmp_;
+  const TableSpec& t_;
+  std::FILE* f_ = nullptr;
+};
+
 } // namespace
 
 void OutputFile::finish() {
-  for (std::size_t k = 0; k < table_values_.size(); ++k) {
+  // Tables: rows streamed back from the journal, in frame order, a batch at
+  // a time, into the compound datasets and the CSV copies.
+  std::vector<io::FrameSink::Table> tables;
+  std::vector<std::unique_ptr<CsvTable>> csv;
+  std::vector<std::vector<double>> batch(plan_.tables.size());
+  std::vector<std::size_t> next_row(plan_.tables.size(), 0);
+  for (std::size_t k = 0; k < plan_.tables.size(); ++k) {
     const TableSpec& t = plan_.tables[k];
     std::vector<io::FrameSink::TableColumn> cols{{"frame", true, "1"}};
     for (std::size_t c = 0; c < t.columns.size(); ++c) cols.push_back({t.columns[c], t.integer[c], t.units[c]});
-    sink_.write_table(t.name, cols, table_values_[k]);
+    tables.push_back(sink_.begin_table(t.name, cols, table_values_[k] / cols.size()));
+    csv.push_back(std::make_unique<CsvTable>(table_csv_path(pl_.output.path, t.name), t));
   }
-  const auto warnings = log::warnings();
+  auto flush = [&](std::size_t k) {
+    const std::size_t cols = plan_.tables[k].columns.size() + 1, rows = batch[k].size() / cols;
+    sink_.write_table_rows(tables[k], next_row[k], batch[k].data(), rows);
+    csv[k]->rows(batch[k].data(), batch[k].size());
+    next_row[k] += rows;
+    batch[k].clear();
+  };
+  if (!plan_.tables.empty()) {
+    RunJournal::read(pl_.output.path, [&](const RunJournal::Record& r) {
+      if (!r.rows || r.table >= batch.size()) return;
+      batch[r.table].insert(batch[r.table].end(), r.values, r.values + r.count);
+      if (batch[r.table].size() > 65536) flush(r.table);
+    });
+    for (std::size_t k = 0; k < batch.size(); ++k) flush(k);
+  }
+  // The warnings of the frames done before a resume come from the journal.
+  std::vector<std::string> warnings = resumed_warnings_;
+  for (const auto& w : log::warnings())
+    if (std::find(warnings.begin(), warnings.end(), w) == warnings.end()) warnings.push_back(w);
+  if (const std::size_t more = log::warnings_dropped())
+    warnings.push_back("... and " + std::to_string(more) + " more warnings, printed during the run but not kept here");
   if (!warnings.empty()) {
     std::string all;
     for (const auto& w : warnings) all += w + "\n";
     sink_.set_attribute("/", "warnings", all);
   }
   sink_.finish();
-  for (std::size_t k = 0; k < table_values_.size(); ++k) {
-    const std::string csv = table_csv_path(pl_.output.path, plan_.tables[k].name);
-    write_csv(csv, plan_.tables[k], table_values_[k]);
-    csv_written_.push_back(csv);
+  for (auto& c : csv) {
+    c->finish();
+    csv_written_.push_back(c->path());
   }
+  journal_->remove();
   finished_ = true;
 }
 

@@ -61,6 +61,10 @@ ErrorContext Params::at(std::string_view key) const {
     if (n->source().path) c.file = *n->source().path;
     c.line = static_cast<int>(n->source().begin.line);
     c.column = static_cast<int>(n->source().begin.column);
+    if (c.line == 0 || c.file == "--set") { // a value given on the command line has no place in a file
+      c.file = "--set";
+      c.line = c.column = 0;
+    }
   } else {
     c.line = static_cast<int>(table_->source().begin.line);
     c.column = static_cast<int>(table_->source().begin.column);
@@ -182,15 +186,22 @@ void Params::finish() const {
     c.file = file_;
     c.line = static_cast<int>(k.source().begin.line);
     c.column = static_cast<int>(k.source().begin.column);
+    if (k.source().path) c.file = *k.source().path; // a key merged in from the instrument profile
     if (c.line == 0) {
       c.line = static_cast<int>(v.source().begin.line);
       c.column = static_cast<int>(v.source().begin.column);
     }
+    if (c.line == 0 || c.file == "--set") {
+      c.file = "--set";
+      c.line = c.column = 0;
+    }
     std::string known;
     for (const auto& u : used_) known += (known.empty() ? "" : ", ") + u;
     c.key = where_.empty() ? std::string(k.str()) : where_ + ": " + std::string(k.str());
+    const std::string hint = did_you_mean_in(k.str(), used_);
     throw Error(ErrorKind::config,
-                "unknown key \"" + std::string(k.str()) + "\"" + (known.empty() ? "" : "; accepted keys: " + known),
+                "unknown key \"" + std::string(k.str()) + "\"" +
+                    (hint.empty() ? (known.empty() ? "" : "; accepted keys: " + known) : hint),
                 c);
   }
 }

@@ -1,5 +1,8 @@
 #include "wavestack/core/error.hpp"
 
+#include <algorithm>
+#include <vector>
+
 namespace wavestack {
 
 Error::Error(ErrorKind kind, std::string message, ErrorContext ctx)
@@ -28,6 +31,27 @@ std::string Error::format(const std::string& message, const ErrorContext& ctx) {
   }
   if (!extra.empty()) out.append(" (").append(extra).append(")");
   return out;
+}
+
+std::size_t edit_distance(std::string_view a, std::string_view b) {
+  // Optimal string alignment distance: insertions, deletions, substitutions
+  // and swaps of neighbours ("distnace") each cost one.
+  const std::size_t n = a.size(), m = b.size();
+  std::vector<std::vector<std::size_t>> d(n + 1, std::vector<std::size_t>(m + 1));
+  for (std::size_t i = 0; i <= n; ++i) d[i][0] = i;
+  for (std::size_t j = 0; j <= m; ++j) d[0][j] = j;
+  for (std::size_t i = 1; i <= n; ++i)
+    for (std::size_t j = 1; j <= m; ++j) {
+      const std::size_t cost = a[i - 1] == b[j - 1] ? 0 : 1;
+      d[i][j] = std::min({d[i - 1][j] + 1, d[i][j - 1] + 1, d[i - 1][j - 1] + cost});
+      if (i > 1 && j > 1 && a[i - 1] == b[j - 2] && a[i - 2] == b[j - 1])
+        d[i][j] = std::min(d[i][j], d[i - 2][j - 2] + 1);
+    }
+  return d[n][m];
+}
+
+std::string did_you_mean(std::string_view word, std::initializer_list<std::string_view> candidates) {
+  return did_you_mean_in(word, candidates);
 }
 
 Error Error::with(const ErrorContext& more) const {

@@ -9,6 +9,7 @@ namespace {
 std::mutex mutex;
 Level current = Level::info;
 std::vector<std::string> recorded;
+std::size_t dropped = 0; // recorded past max_kept: printed, counted, not kept
 std::set<std::string> once_keys;
 
 void print(const char* prefix, const std::string& m) {
@@ -35,16 +36,27 @@ void debug(const std::string& m) {
 void warn(const std::string& m, const std::string& once_key) {
   std::lock_guard lock(mutex);
   if (!once_key.empty() && !once_keys.insert(once_key).second) return;
-  recorded.push_back(m);
+  if (recorded.size() < max_kept) recorded.push_back(m);
+  else ++dropped;
   if (current <= Level::warning) print("warning: ", m);
 }
 std::vector<std::string> warnings() {
   std::lock_guard lock(mutex);
   return recorded;
 }
+std::vector<std::string> warnings_since(std::size_t first) {
+  std::lock_guard lock(mutex);
+  if (first >= recorded.size()) return {};
+  return {recorded.begin() + static_cast<std::ptrdiff_t>(first), recorded.end()};
+}
+std::size_t warnings_dropped() {
+  std::lock_guard lock(mutex);
+  return dropped;
+}
 void clear_warnings() {
   std::lock_guard lock(mutex);
   recorded.clear();
+  dropped = 0;
   once_keys.clear();
 }
 

@@ -2,10 +2,12 @@
 
 #include "wavestack/core/error.hpp"
 
+#include <algorithm>
 #include <cctype>
 #include <charconv>
 #include <cmath>
 #include <cstdio>
+#include <utility>
 
 namespace wavestack {
 namespace {
@@ -23,6 +25,29 @@ struct Unit {
 // "µ" is U+00B5 (micro sign), "μ" is U+03BC (Greek mu); both appear in practice.
 constexpr Unit units[] = {{"pm", 1e-12}, {"nm", 1e-9},      {"um", 1e-6}, {"\xC2\xB5m", 1e-6},
                           {"\xCE\xBCm", 1e-6}, {"mm", 1e-3}, {"cm", 1e-2}, {"m", 1.0}};
+
+/// "; did you mean \"nm\"?" for a unit typo: another case ("NM"), a word
+/// ("microns"), swapped letters ("mn") or one letter off ("nn").
+std::string suggest_unit(std::string_view unit) {
+  std::string low(unit);
+  for (char& c : low) c = static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
+  if (!low.empty() && low.back() == 's' && low.size() > 3) low.pop_back(); // "microns", "meters"
+  if (low.ends_with("metre")) low.replace(low.size() - 5, 5, "meter");
+  static constexpr std::pair<std::string_view, std::string_view> words[] = {
+      {"picometer", "pm"},  {"nanometer", "nm"}, {"micrometer", "um"}, {"micron", "um"},
+      {"millimeter", "mm"}, {"centimeter", "cm"}, {"meter", "m"},      {"u", "um"}, {"mu", "um"}};
+  for (const auto& [w, u] : words)
+    if (low == w) return "; did you mean \"" + std::string(u) + "\"?";
+  for (std::string_view u : {"pm", "nm", "um", "mm", "cm", "m"}) {
+    if (low == u) return "; did you mean \"" + std::string(u) + "\"?"; // wrong case
+    std::string a = low, b(u);
+    std::sort(a.begin(), a.end());
+    std::sort(b.begin(), b.end());
+    if (a == b) return "; did you mean \"" + std::string(u) + "\"?"; // swapped letters
+  }
+  // Prefer the two-letter units: "nn" is "nm" rather than "m".
+  return did_you_mean(low, {"nm", "um", "mm", "pm", "cm", "m"});
+}
 
 } // namespace
 
@@ -51,8 +76,8 @@ std::optional<double> try_parse_length(std::string_view text, std::string* why) 
       return value * u.scale;
     }
   }
-  return set("unknown length unit \"" + std::string(unit) + "\" in \"" + std::string(s) +
-             "\"; use one of pm, nm, um (or µm), mm, cm, m");
+  return set("unknown length unit \"" + std::string(unit) + "\" in \"" + std::string(s) + "\"" +
+             suggest_unit(unit) + " (units: pm, nm, um or µm, mm, cm, m)");
 }
 
 double parse_length(std::string_view text) {

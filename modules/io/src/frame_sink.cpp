@@ -4,6 +4,7 @@
 
 #include <unistd.h>
 
+#include <algorithm>
 #include <cmath>
 #include <cstring>
 #include <ctime>
@@ -54,6 +55,29 @@ hid_t file_value_type(ValueType t) {
   return H5T_IEEE_F64LE;
 }
 
+/// File access of the output: no sieve buffer, so the small per-frame
+/// writes (done flags, records) reach the kernel at once, in order after the
+/// frame's images, and survive a kill of the process.
+/// The metadata cache is capped at 256 KiB: by default it grows towards the
+/// whole chunk index of a long run (tests/bench/run-long-run-check.sh),
+/// although the writer touches each entry about once.
+Hid output_access() {
+  Hid fapl = file_access(true);
+  if (!fapl) return fapl;
+  H5Pset_sieve_buf_size(fapl.get(), 0);
+  H5AC_cache_config_t mdc{};
+  mdc.version = H5AC__CURR_CACHE_CONFIG_VERSION;
+  if (H5Pget_mdc_config(fapl.get(), &mdc) >= 0) {
+    mdc.set_initial_size = true;
+    mdc.initial_size = 256 * 1024;
+    mdc.min_size = 64 * 1024;
+    mdc.max_size = 256 * 1024;
+    H5Pset_mdc_config(fapl.get(), &mdc);
+  }
+  take_hdf5_message();
+  return fapl;
+}
+
 } // namespace
 
 struct ProductInfo {
@@ -63,6 +87,7 @@ struct ProductInfo {
   ValueType vtype = ValueType::f64;
   std::size_t rows = 0, cols = 0; ///< image: h (Z·h for a z-stack), w; matrix: rows, cols; vector: length, 0
   std::size_t planes = 0;         ///< z-stack image (N,Z,h,w): Z; 0 for (N,h,w)
+  bool per_frame = true;          ///< one entry per output frame (listed in frame_datasets)
   std::size_t elem_size = 0;
   Hid dset, file_space, mem_space;
   std::size_t mem_stride = 0;
@@ -77,7 +102,19 @@ struct FrameSink::Impl {
   Product index_p = 0, done_p = 0, focus_p = 0;
   std::vector<std::uint8_t> done;
   std::size_t done_prefix = 0;
+  /// Compressed output: frames written but not yet marked done in the file;
+  /// their chunk index reaches the file only at the next checkpoint().
+  std::vector<std::pair<std::size_t, std::int64_t>> pending;
+  bool frame_list_written = false;
   bool finished = false;
+  struct TableInfo {
+    std::string name;
+    std::vector<TableColumn> columns;
+    std::size_t rows = 0;
+    Hid dset, mem;
+  };
+  std::vector<TableInfo> tables;
+  std::vector<unsigned char> table_buffer; ///< rows being written, reused
 
   ErrorContext ctx(const std::string& dataset = {}) const { return where(partial, dataset); }
   ErrorContext ctx(const ProductInfo& p, std::size_t frame) const {
@@ -89,7 +126,67 @@ struct FrameSink::Impl {
     return products[p];
   }
 
+  /// Write /frames/index and /frames/done of the pending frames.
+  void write_done_flags(std::size_t frame, std::int64_t source_index) {
+    write_scalar(index_p, frame, H5T_NATIVE_INT64, &source_index);
+    const std::uint8_t one = 1;
+    write_scalar(done_p, frame, H5T_NATIVE_UINT8, &one);
+  }
+
+  /// Crash-safe order for compressed output: first every chunk and its index
+  /// entry reach the file, then the done flags of those frames, then those too.
+  void checkpoint() {
+    if (!frame_list_written) {
+      // Which datasets have one entry per frame: what `merge` joins.
+      std::string list;
+      for (const auto& p : products)
+        if (p.per_frame) list.append(list.empty() ? "" : "\n").append(p.name);
+      write_attribute(file.get(), "frame_datasets", list, ErrorKind::output, ctx("/"));
+      frame_list_written = true;
+    }
+    if (H5Fflush(file.get(), H5F_SCOPE_GLOBAL) < 0)
+      fail_hdf5(ErrorKind::output, "could not flush the output file", ctx());
+    if (pending.empty()) return;
+    for (const auto& [frame, source] : pending) write_done_flags(frame, source);
+    pending.clear();
+    if (H5Fflush(file.get(), H5F_SCOPE_GLOBAL) < 0)
+      fail_hdf5(ErrorKind::output, "could not flush the output file", ctx());
+  }
+
+  /// A frame counts as done only if every compressed image has its chunk in
+  /// the file, inside the file's end; frames from the first one that fails
+  /// are written again.
+  void trust_only_stored_chunks() {
+    const auto file_size = static_cast<haddr_t>(fs::file_size(partial));
+    for (std::size_t f = 0; f < done_prefix; ++f) {
+      for (const auto& p : products) {
+        if (!p.image) continue;
+        const hsize_t offset[4] = {f, 0, 0, 0};
+        unsigned mask = 0;
+        haddr_t addr = HADDR_UNDEF;
+        hsize_t size = 0;
+        const bool stored = H5Dget_chunk_info_by_coord(p.dset.get(), offset, &mask, &addr, &size) >= 0 &&
+                            addr != HADDR_UNDEF && size > 0 && addr + size <= file_size;
+        if (!stored) {
+          take_hdf5_message();
+          std::fill(done.begin() + static_cast<std::ptrdiff_t>(f), done.end(), std::uint8_t{0});
+          done_prefix = f;
+          return;
+        }
+      }
+    }
+  }
+
   void close_all() noexcept {
+    // A clean close (an error path) writes every frame that is complete.
+    if (file && !pending.empty()) {
+      try {
+        for (const auto& [frame, source] : pending) write_done_flags(frame, source);
+      } catch (...) {
+      }
+      pending.clear();
+    }
+    tables.clear();
     products.clear();
     one_space.reset();
     complex_mem.reset();
@@ -144,7 +241,10 @@ struct FrameSink::Impl {
     const hsize_t dims[2] = {rows, cols};
     Hid space = space_hid(H5Screate_simple(cols ? 2 : 1, dims, nullptr));
     Hid dcpl = plist_hid(H5Pcreate(H5P_DATASET_CREATE));
-    if (!space || !dcpl) fail_hdf5(ErrorKind::output, "could not prepare the dataset " + name, c);
+    // Storage exists from the start: a later write changes no metadata, so a
+    // killed run leaves a file whose structure is the one flushed at setup.
+    if (!space || !dcpl || H5Pset_alloc_time(dcpl.get(), H5D_ALLOC_TIME_EARLY) < 0)
+      fail_hdf5(ErrorKind::output, "could not prepare the dataset " + name, c);
     const double nan = std::numeric_limits<double>::quiet_NaN();
     const std::int64_t minus_one = -1, zero = 0;
     const bool is_index = name == index_name;
@@ -155,6 +255,7 @@ struct FrameSink::Impl {
     ProductInfo p;
     p.name = name;
     p.vtype = type;
+    p.per_frame = rows == n;
     p.rows = rows;
     p.cols = cols;
     p.elem_size = H5Tget_size(file_value_type(type));
@@ -271,7 +372,7 @@ FrameSink FrameSink::create(const std::string& final_path, std::size_t frames, c
   m->partial = partial_path(final_path);
   m->n = frames;
   m->comp = compression;
-  Hid fapl = file_access(true);
+  Hid fapl = output_access();
   m->file = file_hid(H5Fcreate(m->partial.c_str(), H5F_ACC_TRUNC, H5P_DEFAULT, fapl.get()));
   if (!m->file) fail_hdf5(ErrorKind::output, "cannot create the output file", m->ctx());
   m->init_types();
@@ -315,7 +416,7 @@ FrameSink FrameSink::open_for_resume(const std::string& path) {
     take_hdf5_message();
     fail_output("cannot resume: the partial output file is not a readable HDF5 file", c);
   }
-  Hid fapl = file_access(true);
+  Hid fapl = output_access();
   m->file = file_hid(H5Fopen(m->partial.c_str(), H5F_ACC_RDWR, fapl.get()));
   if (!m->file) fail_hdf5(ErrorKind::output, "cannot resume: the partial output file cannot be opened for writing", c);
   m->init_types();
@@ -332,6 +433,17 @@ FrameSink FrameSink::open_for_resume(const std::string& path) {
   if (!ours || version != 1)
     fail_output("cannot resume: the partial file is not a wavestack format_version 1 output file", c);
 
+  std::vector<std::string> frame_datasets;
+  for (const auto& a : read_all_attributes(m->file.get()))
+    if (a.name == "frame_datasets") {
+      std::size_t from = 0;
+      while (from <= a.value.size()) {
+        const std::size_t to = std::min(a.value.find('\n', from), a.value.size());
+        frame_datasets.push_back(a.value.substr(from, to - from));
+        from = to + 1;
+      }
+    }
+  m->frame_list_written = !frame_datasets.empty();
   Hid dapl = m->image_dapl();
   for (const auto& d : detail::list_datasets(m->file.get(), std::numeric_limits<std::size_t>::max())) {
     ProductInfo p;
@@ -349,6 +461,14 @@ FrameSink FrameSink::open_for_resume(const std::string& path) {
       p.rows = d.shape.size() == 4 ? d.shape[1] * d.shape[2] : d.shape[1];
       p.cols = d.shape.back();
       p.elem_size = p.itype == ImageType::complex64 ? 8 : 4;
+    } else if (cls == H5T_COMPOUND) {
+      // A result table written by finish() of a run killed while finishing:
+      // it is written again, from the frames, when this run finishes.
+      dset.reset();
+      type.reset();
+      if (H5Ldelete(m->file.get(), d.path.c_str(), H5P_DEFAULT) < 0)
+        fail_hdf5(ErrorKind::output, "cannot resume: cannot remove the old table " + d.path, c);
+      continue;
     } else if (d.shape.size() == 1 || d.shape.size() == 2) {
       p.rows = d.shape[0];
       p.cols = d.shape.size() == 2 ? d.shape[1] : 0;
@@ -359,6 +479,7 @@ FrameSink FrameSink::open_for_resume(const std::string& path) {
       continue;
     }
     p.dset = std::move(dset);
+    p.per_frame = std::find(frame_datasets.begin(), frame_datasets.end(), p.name) != frame_datasets.end();
     m->adopt(std::move(p));
   }
   auto find = [&](const char* name) -> Product {
@@ -388,6 +509,7 @@ FrameSink FrameSink::open_for_resume(const std::string& path) {
   if (H5Dread(m->products[m->done_p].dset.get(), H5T_NATIVE_UINT8, H5S_ALL, H5S_ALL, H5P_DEFAULT, m->done.data()) < 0)
     fail_hdf5(ErrorKind::output, "cannot resume: cannot read /frames/done", c);
   while (m->done_prefix < m->n && m->done[m->done_prefix]) ++m->done_prefix;
+  if (m->comp.method == Compression::deflate) m->trust_only_stored_chunks();
   return FrameSink(std::move(m));
 }
 
@@ -425,6 +547,14 @@ FrameSink::Product FrameSink::add_stack(const std::string& name_in, ImageType ty
   if (m.comp.method == Compression::deflate &&
       (H5Pset_shuffle(dcpl.get()) < 0 || H5Pset_deflate(dcpl.get(), static_cast<unsigned>(m.comp.level)) < 0))
     fail_hdf5(ErrorKind::output, "could not set up compression", c);
+  // Uncompressed: every chunk is placed at creation (not filled: the space is
+  // only reserved), so writing a frame is a plain write at a fixed offset
+  // that changes no metadata, and a killed run cannot damage the file's
+  // structure. Compressed chunks differ in size and are placed as written;
+  // checkpoint() makes that safe.
+  if (m.comp.method == Compression::none &&
+      (H5Pset_alloc_time(dcpl.get(), H5D_ALLOC_TIME_EARLY) < 0 || H5Pset_fill_time(dcpl.get(), H5D_FILL_TIME_NEVER) < 0))
+    fail_hdf5(ErrorKind::output, "could not set up the dataset storage", c);
   Hid dapl = m.image_dapl();
 
   ProductInfo p;
@@ -454,6 +584,17 @@ FrameSink::Product FrameSink::add_vector(const std::string& name, ValueType type
   return impl_->create_table(name, type, length, 0, units, extra);
 }
 
+FrameSink::Product FrameSink::add_constant(const std::string& name, const std::vector<double>& values,
+                                           const std::string& units) {
+  Lock lock;
+  Impl& m = *impl_;
+  const Product id = m.create_table(name, ValueType::f64, values.size(), 0, units, {});
+  m.products[id].per_frame = false;
+  if (H5Dwrite(m.products[id].dset.get(), H5T_NATIVE_DOUBLE, H5S_ALL, H5S_ALL, H5P_DEFAULT, values.data()) < 0)
+    fail_hdf5(ErrorKind::output, "could not write " + m.products[id].name, m.ctx(m.products[id].name));
+  return id;
+}
+
 FrameSink::Product FrameSink::add_matrix(const std::string& name, ValueType type, std::size_t rows, std::size_t cols,
                                          const std::string& units, const Attributes& extra) {
   if (cols == 0) fail_internal("FrameSink: matrix " + name + " with no columns", impl_->ctx(name));
@@ -479,6 +620,13 @@ std::vector<std::string> FrameSink::product_names() const {
   std::vector<std::string> out;
   for (const auto& p : impl_->products) out.push_back(p.name);
   return out;
+}
+
+std::string FrameSink::root_text_attribute(const std::string& name) const {
+  Lock lock;
+  for (const auto& a : read_all_attributes(impl_->file.get()))
+    if (a.name == name) return a.value;
+  return {};
 }
 
 void FrameSink::set_attribute(const std::string& object, const std::string& name, const AttributeValue& value) {
@@ -553,50 +701,80 @@ void FrameSink::write_frame_compressed(Product id, std::size_t frame, const unsi
     fail_hdf5(ErrorKind::output, "could not write the compressed frame", c);
 }
 
-void FrameSink::write_table(const std::string& name_in, const std::vector<TableColumn>& columns,
-                            const std::vector<double>& values) {
+FrameSink::Table FrameSink::begin_table(const std::string& name_in, const std::vector<TableColumn>& columns,
+                                        std::size_t rows) {
   Lock lock;
   Impl& m = *impl_;
   const std::string name = absolute_path(name_in);
   const ErrorContext c = m.ctx(name);
   if (columns.empty()) fail_internal("FrameSink: table " + name + " without columns", c);
-  if (values.size() % columns.size() != 0)
-    fail_internal("FrameSink: table " + name + " values are not whole rows", c);
-  const std::size_t rows = values.size() / columns.size();
   create_parent_groups(m.file.get(), name, ErrorKind::output, c);
   // Every field is 8 bytes: float64 or int64, packed in column order.
   const std::size_t rec = 8 * columns.size();
-  Hid mem = type_hid(H5Tcreate(H5T_COMPOUND, rec));
+  Impl::TableInfo t;
+  t.name = name;
+  t.columns = columns;
+  t.rows = rows;
+  t.mem = type_hid(H5Tcreate(H5T_COMPOUND, rec));
   Hid filet = type_hid(H5Tcreate(H5T_COMPOUND, rec));
-  if (!mem || !filet) fail_hdf5(ErrorKind::output, "could not make the table type", c);
+  if (!t.mem || !filet) fail_hdf5(ErrorKind::output, "could not make the table type", c);
   for (std::size_t k = 0; k < columns.size(); ++k) {
     const bool integer = columns[k].integer;
-    if (H5Tinsert(mem.get(), columns[k].name.c_str(), 8 * k, integer ? H5T_NATIVE_INT64 : H5T_NATIVE_DOUBLE) < 0 ||
+    if (H5Tinsert(t.mem.get(), columns[k].name.c_str(), 8 * k, integer ? H5T_NATIVE_INT64 : H5T_NATIVE_DOUBLE) < 0 ||
         H5Tinsert(filet.get(), columns[k].name.c_str(), 8 * k, integer ? H5T_STD_I64LE : H5T_IEEE_F64LE) < 0)
       fail_hdf5(ErrorKind::output, "could not add the column " + columns[k].name, c);
   }
-  std::vector<unsigned char> buf(std::max<std::size_t>(rows, 1) * rec);
+  const hsize_t dims = rows;
+  Hid space = space_hid(H5Screate_simple(1, &dims, nullptr));
+  t.dset = dataset_hid(
+      H5Dcreate2(m.file.get(), name.c_str(), filet.get(), space.get(), H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT));
+  if (!space || !t.dset) fail_hdf5(ErrorKind::output, "could not create the table", c);
+  std::string units;
+  for (std::size_t k = 0; k < columns.size(); ++k) units += (k ? "," : "") + columns[k].units;
+  write_attribute(t.dset.get(), "units", units, ErrorKind::output, c);
+  m.tables.push_back(std::move(t));
+  return m.tables.size() - 1;
+}
+
+void FrameSink::write_table_rows(Table id, std::size_t first_row, const double* values, std::size_t rows) {
+  Lock lock;
+  Impl& m = *impl_;
+  if (id >= m.tables.size()) fail_internal("FrameSink: unknown table handle", m.ctx());
+  Impl::TableInfo& t = m.tables[id];
+  const ErrorContext c = m.ctx(t.name);
+  if (first_row + rows > t.rows)
+    fail_internal("FrameSink: rows " + std::to_string(first_row) + "+" + std::to_string(rows) + " beyond table " +
+                      t.name,
+                  c);
+  if (rows == 0) return;
+  const std::size_t cols = t.columns.size();
+  m.table_buffer.resize(rows * cols * 8);
   for (std::size_t r = 0; r < rows; ++r)
-    for (std::size_t k = 0; k < columns.size(); ++k) {
-      const double v = values[r * columns.size() + k];
-      unsigned char* dst = buf.data() + r * rec + 8 * k;
-      if (columns[k].integer) {
+    for (std::size_t k = 0; k < cols; ++k) {
+      const double v = values[r * cols + k];
+      unsigned char* dst = m.table_buffer.data() + (r * cols + k) * 8;
+      if (t.columns[k].integer) {
         const std::int64_t i = std::isfinite(v) ? static_cast<std::int64_t>(std::llround(v)) : -1;
         std::memcpy(dst, &i, 8);
       } else {
         std::memcpy(dst, &v, 8);
       }
     }
-  const hsize_t dims = rows;
-  Hid space = space_hid(H5Screate_simple(1, &dims, nullptr));
-  Hid dset = dataset_hid(
-      H5Dcreate2(m.file.get(), name.c_str(), filet.get(), space.get(), H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT));
-  if (!space || !dset) fail_hdf5(ErrorKind::output, "could not create the table", c);
-  if (rows && H5Dwrite(dset.get(), mem.get(), H5S_ALL, H5S_ALL, H5P_DEFAULT, buf.data()) < 0)
+  const hsize_t start = first_row, count = rows;
+  Hid fs = space_hid(H5Dget_space(t.dset.get()));
+  Hid ms = space_hid(H5Screate_simple(1, &count, nullptr));
+  if (!fs || !ms || H5Sselect_hyperslab(fs.get(), H5S_SELECT_SET, &start, nullptr, &count, nullptr) < 0 ||
+      H5Dwrite(t.dset.get(), t.mem.get(), ms.get(), fs.get(), H5P_DEFAULT, m.table_buffer.data()) < 0)
     fail_hdf5(ErrorKind::output, "could not write the table", c);
-  std::string units;
-  for (std::size_t k = 0; k < columns.size(); ++k) units += (k ? "," : "") + columns[k].units;
-  write_attribute(dset.get(), "units", units, ErrorKind::output, c);
+}
+
+void FrameSink::write_table(const std::string& name, const std::vector<TableColumn>& columns,
+                            const std::vector<double>& values) {
+  if (columns.empty() || values.size() % columns.size() != 0)
+    fail_internal("FrameSink: table " + name + " values are not whole rows", impl_->ctx(name));
+  const std::size_t rows = values.size() / columns.size();
+  const Table t = begin_table(name, columns, rows);
+  write_table_rows(t, 0, values.data(), rows);
 }
 
 void FrameSink::write_value(Product p, std::size_t index, double value) {
@@ -642,9 +820,11 @@ void FrameSink::set_focus_distance(std::size_t frame, double metres) {
 void FrameSink::mark_done(std::size_t frame, std::int64_t source_index) {
   Lock lock;
   Impl& m = *impl_;
-  m.write_scalar(m.index_p, frame, H5T_NATIVE_INT64, &source_index);
-  const std::uint8_t one = 1;
-  m.write_scalar(m.done_p, frame, H5T_NATIVE_UINT8, &one);
+  if (frame >= m.n) fail_internal("FrameSink: frame " + std::to_string(frame) + " beyond " + std::to_string(m.n), m.ctx());
+  // Uncompressed frames are at fixed offsets: the flag may follow the data
+  // at once. Compressed chunks need their index flushed first (checkpoint).
+  if (m.comp.method == Compression::none) m.write_done_flags(frame, source_index);
+  else m.pending.emplace_back(frame, source_index);
   m.done[frame] = 1;
   while (m.done_prefix < m.n && m.done[m.done_prefix]) ++m.done_prefix;
 }
@@ -660,10 +840,9 @@ std::vector<std::uint8_t> FrameSink::read_done() const {
   return out;
 }
 
-void FrameSink::flush() {
+void FrameSink::checkpoint() {
   Lock lock;
-  if (H5Fflush(impl_->file.get(), H5F_SCOPE_GLOBAL) < 0)
-    fail_hdf5(ErrorKind::output, "could not flush the output file", impl_->ctx());
+  impl_->checkpoint();
 }
 
 void FrameSink::finish() {
@@ -672,6 +851,8 @@ void FrameSink::finish() {
   if (m.finished) return;
   const ErrorContext c = where(m.final_path);
   if (m.file) { // a second finish() after a failed rename only retries the rename
+    m.checkpoint();
+    m.tables.clear();
     m.products.clear();
     m.one_space.reset();
     m.complex_mem.reset();

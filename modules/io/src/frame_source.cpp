@@ -6,6 +6,10 @@
 #include <sys/stat.h>
 
 #include <algorithm>
+#include <cmath>
+#include <cstdint>
+#include <cstdio>
+#include <limits>
 #include <filesystem>
 
 namespace wavestack::io {
@@ -129,8 +133,17 @@ void tune_chunk_cache(hid_t dapl, hid_t dcpl, std::size_t elem_size, std::size_t
   std::vector<hsize_t> c(static_cast<std::size_t>(rank));
   H5Pget_chunk(dcpl, rank, c.data());
   chunk_out.assign(c.begin(), c.end());
+  // HDF5 allocates a whole chunk to read any part of it: a chunk shape no
+  // writer makes (a damaged file) is refused, not allocated.
+  constexpr std::size_t max_chunk_bytes = std::size_t{1} << 30;
   std::size_t chunk_bytes = elem_size;
-  for (hsize_t d : c) chunk_bytes *= static_cast<std::size_t>(d);
+  for (hsize_t d : c) {
+    if (rank < 2 || d == 0 || d > max_chunk_bytes / chunk_bytes)
+      fail_input("the dataset's chunks (" + shape_text(chunk_out) + ") are empty or larger than 1 GiB; " +
+                     "is the file damaged?",
+                 where(path, dataset));
+    chunk_bytes *= static_cast<std::size_t>(d);
+  }
   const std::size_t ch = static_cast<std::size_t>(c[rank - 2]), cw = static_cast<std::size_t>(c[rank - 1]);
   const std::size_t per_frame = ((h + ch - 1) / ch) * ((w + cw - 1) / cw); // chunks touched by one frame
   // One frame per chunk: nothing is read twice, so no cache at all; HDF5
@@ -155,6 +168,35 @@ void tune_chunk_cache(hid_t dapl, hid_t dcpl, std::size_t elem_size, std::size_t
   H5Pset_chunk_cache(dapl, slots, wanted, 1.0);
 }
 
+/// Error(input) when a float frame holds NaN or infinite pixels: an FFT
+/// spreads a single one over the whole frame, so no result would be right.
+void refuse_non_finite(DType type, ImageView<const float> img, const ErrorContext& ctx) {
+  std::size_t nan = 0, inf = 0, first_y = 0, first_x = 0;
+  for (std::size_t y = 0; y < img.height(); ++y) {
+    const float* r = img.row(y);
+    std::size_t bad = 0;
+    for (std::size_t x = 0; x < img.width(); ++x) bad += !std::isfinite(r[x]);
+    if (!bad) continue;
+    for (std::size_t x = 0; x < img.width(); ++x) {
+      if (std::isfinite(r[x])) continue;
+      if (nan + inf == 0) { first_y = y; first_x = x; }
+      ++(std::isnan(r[x]) ? nan : inf);
+    }
+  }
+  if (nan + inf == 0) return;
+  std::string what;
+  if (nan) what.append(std::to_string(nan)).append(" NaN");
+  if (nan && inf) what.append(" and ");
+  if (inf)
+    what.append(std::to_string(inf))
+        .append(type == DType::f64 ? " infinite (or beyond the float32 range)" : " infinite");
+  fail_input("the frame has " + what + (nan + inf == 1 ? " pixel" : " pixels") + ", the first at row " +
+                 std::to_string(first_y) + ", column " + std::to_string(first_x) +
+                 "; the FFTs would spread them over the whole frame, so it is not processed (leave it out of the "
+                 "frame selection or repair it)",
+             ctx);
+}
+
 } // namespace
 
 FrameSource FrameSource::open(const std::string& path, const std::string& dataset_in) {
@@ -175,7 +217,35 @@ FrameSource FrameSource::open(const std::string& path, const std::string& datase
   Hid fapl = file_access();
   impl->file = file_hid(H5Fopen(path.c_str(), H5F_ACC_RDONLY, fapl.get()));
   if (!impl->file) fail_hdf5(ErrorKind::input, "cannot open the HDF5 file", ctx);
+  return open_dataset(std::move(impl));
+}
 
+FrameSource FrameSource::open_image(std::span<const std::byte> image, const std::string& name,
+                                    const std::string& dataset_in) {
+  Lock lock;
+  auto impl = std::make_unique<Impl>();
+  impl->path = name;
+  impl->dataset = dataset_in.empty() ? std::string() : absolute_path(dataset_in);
+  const ErrorContext ctx = impl->ctx();
+  if (image.empty()) fail_input("this is not an HDF5 file (it is empty)", ctx);
+  // The core driver without a backing store: the file lives in memory only,
+  // on HDF5's own copy of the bytes.
+  Hid fapl = plist_hid(H5Pcreate(H5P_FILE_ACCESS));
+  if (!fapl || H5Pset_fapl_core(fapl.get(), 1 << 16, false) < 0 ||
+      H5Pset_file_image(fapl.get(), const_cast<std::byte*>(image.data()), image.size()) < 0)
+    fail_hdf5(ErrorKind::input, "cannot prepare the in-memory file", ctx);
+  // HDF5 takes two core-driver files of one name for the same open file
+  // (and shares its state, freed image included): a name of its own each.
+  static std::uint64_t images = 0; // guarded by the lock
+  const std::string unique = "memory-image-" + std::to_string(++images) + "/" + name;
+  impl->file = file_hid(H5Fopen(unique.c_str(), H5F_ACC_RDONLY, fapl.get()));
+  if (!impl->file) fail_hdf5(ErrorKind::input, "cannot open the HDF5 file", ctx);
+  return open_dataset(std::move(impl));
+}
+
+FrameSource FrameSource::open_dataset(std::unique_ptr<Impl> impl) {
+  const ErrorContext ctx = impl->ctx();
+  const std::string& path = impl->path;
   if (impl->dataset.empty())
     fail_input("no dataset was given; " + dataset_list(impl->file.get()), ctx);
   switch (path_kind(impl->file.get(), impl->dataset)) {
@@ -197,6 +267,8 @@ FrameSource FrameSource::open(const std::string& path, const std::string& datase
   Hid dcpl = plist_hid(H5Dget_create_plist(probe.get()));
   if (!type || !space || !dcpl) fail_hdf5(ErrorKind::input, "cannot read the dataset's type and shape", ctx);
 
+  if (const std::string why = damaged_layout(type.get()); !why.empty())
+    fail_input("the dataset's element type is damaged: " + why, ctx);
   if (!classify(type.get(), impl->type))
     fail_input("the dataset has element type " + describe_type(type.get()) +
                    "; expected camera frames of an integer type (uint8, uint16, int16, uint32, ...) or "
@@ -223,6 +295,13 @@ FrameSource FrameSource::open(const std::string& path, const std::string& datase
   if (impl->h < min_side || impl->w < min_side)
     fail_input("the dataset has frames of " + std::to_string(impl->h) + "x" + std::to_string(impl->w) +
                    " pixels; at least 16x16 are needed",
+               ctx);
+  // Every frame in flight holds several float and complex copies: refuse a
+  // declared size (e.g. an unwritten chunked dataset) before allocating.
+  if (impl->h > max_frame_pixels / impl->w)
+    fail_input("the dataset has frames of " + std::to_string(impl->h) + "x" + std::to_string(impl->w) +
+                   " pixels, too large to process: at most " + std::to_string(max_frame_pixels) +
+                   " pixels per frame (e.g. 16384x16384)",
                ctx);
 
   Hid dapl = plist_hid(H5Pcreate(H5P_DATASET_ACCESS));
@@ -297,6 +376,7 @@ void FrameSource::read(std::size_t frame, ImageView<float> out) {
   if (sel < 0) fail_hdf5(ErrorKind::input, "cannot select the frame", ctx);
   if (H5Dread(m.dset.get(), H5T_NATIVE_FLOAT, m.mem_space.get(), m.file_space.get(), m.xfer.get(), out.data()) < 0)
     fail_hdf5(ErrorKind::input, "cannot read the frame", ctx);
+  if (m.type == DType::f32 || m.type == DType::f64) refuse_non_finite(m.type, out, ctx);
 }
 
 namespace {
@@ -380,6 +460,63 @@ void FrameSource::convert_raw(DType type, const void* src, ImageView<float> out)
   case DType::f32: return convert_rows(static_cast<const float*>(src), out);
   case DType::f64: return convert_rows(static_cast<const double*>(src), out);
   }
+}
+
+namespace {
+/// Largest value of an integer type, 0 for floats.
+double type_max(DType t) {
+  switch (t) {
+  case DType::u8: return 255.0;
+  case DType::i8: return 127.0;
+  case DType::u16: return 65535.0;
+  case DType::i16: return 32767.0;
+  case DType::u32: return 4294967295.0;
+  case DType::i32: return 2147483647.0;
+  case DType::u64: return static_cast<double>(std::numeric_limits<std::uint64_t>::max());
+  case DType::i64: return static_cast<double>(std::numeric_limits<std::int64_t>::max());
+  default: return 0.0;
+  }
+}
+
+std::string number_text(double v) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.9g", v);
+  return buf;
+}
+} // namespace
+
+void FrameSource::check_frame(std::size_t frame, ImageView<const float> data) const {
+  const Impl& m = *impl_;
+  ErrorContext ctx = m.ctx();
+  ctx.frame = static_cast<std::int64_t>(frame);
+  if (m.type == DType::f32 || m.type == DType::f64) refuse_non_finite(m.type, data, ctx);
+  // A blank frame: every pixel equal. The scan stops at the first pixel that
+  // differs, which in a real hologram is the second one.
+  if (data.height() == 0 || data.width() == 0) return;
+  const float v = data.row(0)[0];
+  for (std::size_t y = 0; y < data.height(); ++y) {
+    const float* r = data.row(y);
+    for (std::size_t x = 0; x < data.width(); ++x)
+      if (r[x] != v) return;
+  }
+  std::string why;
+  const double max = type_max(m.type);
+  if (v == 0.0f) {
+    why = "is all zero (did light reach the camera?)";
+  } else if (max > 0 && v == static_cast<float>(max)) {
+    why = "is saturated: every pixel is " + number_text(v) + ", the " + std::string(io::dtype_name(m.type)) +
+          " maximum";
+  } else {
+    // A camera of fewer bits than its container type saturates at 2^bits - 1.
+    for (int bits : {10, 12, 14})
+      if (max > 0 && static_cast<double>(v) == std::ldexp(1.0, bits) - 1.0 && std::ldexp(1.0, bits) - 1.0 < max)
+        why = "is saturated: every pixel is " + number_text(v) + ", the maximum of a " + std::to_string(bits) +
+              "-bit camera";
+    if (why.empty()) why = "is blank: every pixel is " + number_text(v);
+  }
+  log::warn("frame " + std::to_string(frame) + " of " + m.path + ":" + m.dataset + " " + why +
+                "; it holds no fringes, so its results carry no information",
+            "blank-frame:" + m.path + ":" + m.dataset + ":" + std::to_string(frame));
 }
 
 } // namespace wavestack::io

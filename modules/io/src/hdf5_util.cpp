@@ -42,8 +42,15 @@ herr_t collect_error(unsigned, const H5E_error2_t* err, void* data) {
   if (H5Eget_msg(err->min_num, nullptr, minor, sizeof minor) > 0) text = minor;
   if (err->desc && *err->desc) {
     if (!text.empty()) text += ": ";
-    text += err->desc;
+    // A failed write() is described over two lines with buffer addresses;
+    // the system's reason ("No space left on device") is what tells.
+    const std::string desc = err->desc;
+    const std::string tag = "error message = '";
+    const std::size_t at = desc.find(tag), end = at == std::string::npos ? at : desc.find('\'', at + tag.size());
+    text += end == std::string::npos ? desc : desc.substr(at + tag.size(), end - at - tag.size());
   }
+  for (char& c : text)
+    if (c == '\n' || c == '\r') c = ' '; // errors are one line
   out->push_back(text);
   return 0;
 }
@@ -112,6 +119,24 @@ std::string describe_type(hid_t type) {
   }
 }
 
+std::string damaged_layout(hid_t type) {
+  const H5T_class_t cls = H5Tget_class(type);
+  if (cls != H5T_INTEGER && cls != H5T_FLOAT) return {};
+  const std::size_t bits = 8 * H5Tget_size(type);
+  const std::size_t precision = H5Tget_precision(type);
+  const int offset = H5Tget_offset(type);
+  if (precision == 0 || offset < 0 || static_cast<std::size_t>(offset) + precision > bits)
+    return std::to_string(precision) + " significant bits at offset " + std::to_string(offset) + " in " +
+           std::to_string(bits) + "-bit elements";
+  if (cls == H5T_FLOAT) {
+    std::size_t spos = 0, epos = 0, esize = 0, mpos = 0, msize = 0;
+    if (H5Tget_fields(type, &spos, &epos, &esize, &mpos, &msize) < 0 || spos >= precision ||
+        epos + esize > precision || mpos + msize > precision || esize == 0 || esize > 32 || msize == 0)
+      return "a floating-point layout that does not fit its " + std::to_string(precision) + " bits";
+  }
+  return {};
+}
+
 std::vector<std::uint64_t> space_shape(hid_t space) {
   const int rank = H5Sget_simple_extent_ndims(space);
   if (rank <= 0) return {};
@@ -151,6 +176,10 @@ Attribute read_attribute(hid_t attr) {
     return out;
   }
   out.type = describe_type(type.get());
+  if (!damaged_layout(type.get()).empty()) {
+    out.value = "<unreadable>";
+    return out;
+  }
   const bool scalar = H5Sget_simple_extent_type(space.get()) == H5S_SCALAR;
   const hssize_t npoints = H5Sget_simple_extent_npoints(space.get());
   const std::size_t n = npoints > 0 ? static_cast<std::size_t>(npoints) : 0;
@@ -410,11 +439,9 @@ std::string absolute_path(const std::string& dataset) {
 
 // --- public helpers ----------------------------------------------------------
 
-namespace {
 using namespace detail;
 
-/// Open a file read-only for listing/attribute reading, with clear errors.
-Hid open_for_reading(const std::string& path) {
+Hid detail::open_for_reading(const std::string& path) {
   struct stat st {};
   if (::stat(path.c_str(), &st) != 0)
     fail_input("cannot open the file: it does not exist", where(path));
@@ -429,7 +456,6 @@ Hid open_for_reading(const std::string& path) {
   if (!f) fail_hdf5(ErrorKind::input, "cannot open the HDF5 file", where(path));
   return f;
 }
-} // namespace
 
 std::vector<DatasetInfo> list_datasets(const std::string& path, std::size_t limit) {
   Lock lock;

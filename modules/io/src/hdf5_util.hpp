@@ -84,6 +84,11 @@ inline Hid object_hid(hid_t id) { return {id, H5Oclose}; }
 /// background) and one closing must not close the other's datasets.
 Hid file_access(bool strong_close = false);
 
+/// Open a file read-only (for listing, attributes, merging) with clear
+/// errors: Error(input) when it is missing, a folder or not HDF5. Call with
+/// the lock held.
+Hid open_for_reading(const std::string& path);
+
 /// Holds hdf5_mutex() and makes sure HDF5 prints nothing by itself on the
 /// calling thread (the error stack is per thread in thread-safe builds).
 class Lock {
@@ -107,6 +112,13 @@ std::string take_hdf5_message();
 /// numpy-like name of an HDF5 datatype: "uint16", "float32",
 /// "compound {r: float32, i: float32}", "string", "enum", ...
 std::string describe_type(hid_t type);
+
+/// Why the bit layout of an integer or float type cannot be right (a
+/// precision or bit offset beyond its size, a float field outside it), or
+/// empty when it can. A damaged file can say so, and HDF5 1.10's type
+/// conversion then overruns its own stack buffers: check before any read
+/// that converts.
+std::string damaged_layout(hid_t type);
 
 /// Shape of a dataspace (empty for scalars); rank -1 for null spaces.
 std::vector<std::uint64_t> space_shape(hid_t space);

@@ -36,6 +36,10 @@ public:
     step_ = *step;
     if (!(step_ > 0)) p.fail("step", "must be a positive length");
     if (!(to_ > from_)) p.fail("to", "must be above from");
+    // Each plane is one inverse FFT per frame: a sweep of millions is a unit slip.
+    if ((to_ - from_) / step_ > 10000)
+      p.fail("step", "the sweep from " + format_length(from_) + " to " + format_length(to_) + " in steps of " +
+                         format_length(step_) + " has more than 10000 planes; use a larger step");
     std::string names = "\"auto\"";
     for (focus::Metric m : focus::all_metrics()) names += ", \"" + std::string(focus::info(m).name) + "\"";
     const std::string metric = p.string("metric", "auto");

@@ -20,6 +20,10 @@ struct PlanSummary {
   std::size_t height = 0, width = 0;    ///< input frame size
   std::string dtype;                    ///< input element type
   std::vector<std::int64_t> frames;     ///< selected source indices
+  std::string selection;                ///< the selection as text ("0:100"), after --frames
+  /// Identifies the input data (shape, type, checksum of sample frames), so
+  /// that --resume and merge can tell the same input from another.
+  std::string source_fingerprint;
   std::vector<Shape> shapes;            ///< output shape of each stage
   Shape output;                         ///< shape written to the file
   Notes notes;                          ///< what the stages decided (carrier, radius, ...)
@@ -33,10 +37,12 @@ struct RunSettings {
   int tokens = 0;           ///< frames in flight; 0 = the [run] table or 2 × threads
   bool progress = false;    ///< print progress on stderr
   std::string frames;       ///< --frames A:B override, empty = the file's selection
+  bool resume = false;      ///< continue the partial output of an interrupted run
 };
 
 struct RunReport {
-  std::size_t frames = 0;
+  std::size_t frames = 0;      ///< frames written by this run
+  std::size_t resumed_at = 0;  ///< first frame written (0 unless resumed)
   double seconds = 0;
   std::string output;
   std::vector<std::string> previews;

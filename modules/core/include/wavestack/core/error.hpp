@@ -2,10 +2,13 @@
 // Errors that carry where they happened. Every error maps to one exit status
 // of the command line (DESIGN.md): 2 pipeline/command line, 3 input data,
 // 4 output, 1 anything else.
+#include <algorithm>
 #include <cstdint>
+#include <initializer_list>
 #include <optional>
 #include <stdexcept>
 #include <string>
+#include <string_view>
 
 namespace wavestack {
 
@@ -52,6 +55,27 @@ private:
   std::string message_;
   ErrorContext ctx_;
 };
+
+/// "; did you mean \"x\"?" for the candidate closest to `word` (an unknown
+/// key, stage type or unit), or "" when none is close: edit distance with
+/// transpositions at most max(1, length/3), ties to the earlier candidate.
+std::string did_you_mean(std::string_view word, std::initializer_list<std::string_view> candidates);
+template <class Range> std::string did_you_mean_in(std::string_view word, const Range& candidates);
+std::size_t edit_distance(std::string_view a, std::string_view b);
+
+template <class Range> std::string did_you_mean_in(std::string_view word, const Range& candidates) {
+  std::string best;
+  std::size_t best_d = std::max<std::size_t>(1, word.size() / 3) + 1;
+  for (const auto& c : candidates) {
+    const std::string_view cv(c);
+    const std::size_t d = edit_distance(word, cv);
+    if (d < best_d && cv != word) {
+      best_d = d;
+      best = std::string(cv);
+    }
+  }
+  return best.empty() ? std::string() : "; did you mean \"" + best + "\"?";
+}
 
 [[noreturn]] inline void fail_config(std::string msg, ErrorContext ctx = {}) {
   throw Error(ErrorKind::config, std::move(msg), std::move(ctx));

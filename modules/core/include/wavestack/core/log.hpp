@@ -1,6 +1,7 @@
 #pragma once
 // Minimal thread-safe log to stderr. Warnings are never silent: each one is
 // also kept so the program can write them into the output file's attributes.
+#include <cstddef>
 #include <string>
 #include <vector>
 
@@ -18,8 +19,16 @@ void debug(const std::string& message);
 /// (when non-empty) is printed and recorded only the first time.
 void warn(const std::string& message, const std::string& once_key = {});
 
+/// Warnings kept for the output file: the first max_kept (a long run with a
+/// warning per frame would otherwise grow without bound); later ones are
+/// printed and counted (warnings_dropped()).
+inline constexpr std::size_t max_kept = 1000;
+
 /// Every warning recorded so far, in order.
 std::vector<std::string> warnings();
+/// The recorded warnings from index `first` on.
+std::vector<std::string> warnings_since(std::size_t first);
+std::size_t warnings_dropped();
 void clear_warnings();
 
 } // namespace wavestack::log

@@ -19,7 +19,19 @@
 //   /frames/index     (N) int64, fill -1   source frame index
 //   /frames/done      (N) uint8, fill 0    1 once the frame is complete
 //   /focus/distance   (N) float64, fill NaN, units "m"
-// Unwritten image frames read as NaN (the fill value).
+//   root attribute frame_datasets: the paths of the datasets with one entry
+//   per output frame (images, /frames/*, /focus/distance, per-frame
+//   records; written at the first checkpoint()), which `merge` joins
+// A finished file has every frame written. In a partial file only the
+// frames with /frames/done == 1 are defined.
+//
+// Killed runs (SIGKILL, a cluster's time limit): the file structure is
+// flushed once the datasets are declared (checkpoint()). Uncompressed image
+// storage is placed at creation, so a frame is a write at a fixed offset and
+// its done flag can follow at once; compressed chunks are placed as they
+// come, so their done flags are set only at the next checkpoint(), after
+// their index is in the file. open_for_resume() checks the chunks of every
+// frame marked done before trusting it.
 //
 // Compression: none (default) or shuffle + deflate level 1-9. With deflate,
 // write_frame() lets HDF5 compress inside the (serial) writer, which is
@@ -140,6 +152,12 @@ public:
   };
   void write_table(const std::string& name, const std::vector<TableColumn>& columns,
                    const std::vector<double>& values /* rows × columns, row-major */);
+  /// The same in pieces, for tables too long to hold in memory: declare the
+  /// table with its row count, then write rows in batches.
+  using Table = std::size_t;
+  Table begin_table(const std::string& name, const std::vector<TableColumn>& columns, std::size_t rows);
+  void write_table_rows(Table table, std::size_t first_row, const double* values /* rows × columns */,
+                        std::size_t rows);
 
   /// Declare a 1-D dataset (length) or 2-D dataset (rows, cols) with a units
   /// attribute; parent groups are created as needed. Unwritten values are
@@ -148,6 +166,10 @@ public:
                      const std::string& units, const Attributes& extra = {});
   Product add_matrix(const std::string& name, ValueType type, std::size_t rows, std::size_t cols,
                      const std::string& units, const Attributes& extra = {});
+  /// A float64 vector known once for the whole run (e.g. the planes of a
+  /// focus sweep), written at once. Unlike add_vector() with a length equal
+  /// to the frame count, it is not a per-frame dataset.
+  Product add_constant(const std::string& name, const std::vector<double>& values, const std::string& units);
 
   /// Handle of an existing product by name ("phase" or "/phase"); for the
   /// built-in tables use "frames/index", "frames/done", "focus/distance".
@@ -155,6 +177,9 @@ public:
   Product product(const std::string& name) const;
   bool has_product(const std::string& name) const;
   std::vector<std::string> product_names() const;
+
+  /// A text attribute of the root of the open file ("" when there is none).
+  std::string root_text_attribute(const std::string& name) const;
 
   /// Add or replace an attribute on the root ("/") or on a product by name,
   /// any time before finish() (e.g. warnings collected during the run).
@@ -194,9 +219,12 @@ public:
   /// Read the whole /frames/done back from the file.
   std::vector<std::uint8_t> read_done() const;
 
-  /// Flush HDF5's buffers to the file (e.g. every few seconds so that a
-  /// killed run leaves a readable partial file).
-  void flush();
+  /// Make what is written so far survive a kill: flush HDF5's metadata, then
+  /// set the done flags of compressed frames written since the last
+  /// checkpoint, then flush again. Call after the datasets are declared and
+  /// every second or so. (Uncompressed frames are marked done at once: their
+  /// storage is placed when the file is created.)
+  void checkpoint();
 
   /// Close the file and rename it to the final path. Error(output) when
   /// closing or renaming fails (the data then stays in the .partial file).

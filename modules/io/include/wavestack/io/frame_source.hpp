@@ -21,6 +21,7 @@
 
 #include <cstddef>
 #include <memory>
+#include <span>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -47,15 +48,26 @@ struct DatasetSpec {
 /// Error(config) for an empty file part (":/x").
 DatasetSpec split_dataset_spec(std::string_view spec);
 
+/// Largest frame accepted, in pixels (2^28, e.g. 16384×16384): each frame
+/// in flight holds float and complex copies, so a declared size above this
+/// (an unwritten chunked dataset, a wrong shape) is refused before allocating.
+inline constexpr std::size_t max_frame_pixels = std::size_t{1} << 28;
+
 class FrameSource {
 public:
   /// Open `dataset` (e.g. "/holograms") in the HDF5 file at `path`.
   /// Error(input), naming file and dataset, when: the file does not exist, is
   /// not an HDF5 file or cannot be read; the dataset is missing (the message
   /// lists up to 10 datasets that do exist) or is a group; the rank is not 2
-  /// or 3; a dimension is zero; frames are smaller than 16×16; the element
-  /// type is not one of the accepted ones (the message names the found type).
+  /// or 3; a dimension is zero; frames are smaller than 16×16 or larger than
+  /// max_frame_pixels; the element type is not one of the accepted ones (the
+  /// message names the found type).
   static FrameSource open(const std::string& path, const std::string& dataset);
+  /// Same from the bytes of an HDF5 file held in memory (HDF5's core driver
+  /// on a copy of `image`); `name` stands for the file in errors and path().
+  /// Used by the fuzz targets and tests, which have no file on disk.
+  static FrameSource open_image(std::span<const std::byte> image, const std::string& name,
+                                const std::string& dataset);
 
   FrameSource(FrameSource&&) noexcept;
   FrameSource& operator=(FrameSource&&) noexcept;
@@ -77,7 +89,8 @@ public:
 
   /// Read frame `frame` into `out` (height()×width(), any row stride),
   /// converted to float. Error(input) with the frame index when the index is
-  /// out of range or HDF5 fails; Error(internal) when `out` has another shape.
+  /// out of range, HDF5 fails or a float frame holds NaN or infinite pixels;
+  /// Error(internal) when `out` has another shape.
   void read(std::size_t frame, ImageView<float> out);
 
   /// Size of one frame in its stored element type (h·w·element size).
@@ -90,6 +103,15 @@ public:
   /// Convert a frame read by read_raw() (element type `type`) to float.
   static void convert_raw(DType type, const void* src, ImageView<float> out);
 
+  /// Check frame `frame` (as converted to float) before it is processed.
+  /// Error(input) naming file, dataset and frame when a pixel is NaN or
+  /// infinite: an FFT spreads one such pixel over the whole frame. A warning
+  /// (log::warn, once per frame, so it lands in the output's warnings) when
+  /// every pixel has one value: all zero, the type's maximum or that of a
+  /// 10/12/14-bit camera (saturated), or any other constant; such a frame is
+  /// still processed. Touches no HDF5: safe from any thread.
+  void check_frame(std::size_t frame, ImageView<const float> data) const;
+
   /// The datasets in a file, for `inspect FILE.h5` (same as io::list_datasets).
   static std::vector<DatasetInfo> list_datasets(const std::string& path, std::size_t limit = 1000) {
     return io::list_datasets(path, limit);
@@ -98,6 +120,8 @@ public:
 private:
   struct Impl;
   explicit FrameSource(std::unique_ptr<Impl> impl);
+  /// The checks and set-up shared by open() and open_image(), on an open file.
+  static FrameSource open_dataset(std::unique_ptr<Impl> impl);
   std::unique_ptr<Impl> impl_;
 };
 
