@@ -11,6 +11,8 @@ WS_BUILD_PACKAGES=(cmake ninja-build g++ pkg-config libfftw3-dev libhdf5-dev lib
   libtbb-dev libtomlplusplus-dev libcli11-dev catch2)
 # Packages the reference checks need (Debian's Python and its libraries).
 WS_TEST_PACKAGES=(python3 python3-numpy python3-scipy python3-skimage python3-h5py)
+# Packages of the fuzz smoke run only (libFuzzer needs clang; fuzz/README.md).
+WS_FUZZ_PACKAGES=(clang-14 libfuzzer-14-dev libclang-rt-14-dev)
 
 ws_install() {
   local missing=()
@@ -31,10 +33,15 @@ ws_install() {
   "${sudo[@]}" apt-get install -y -qq --no-install-recommends "${missing[@]}" >/dev/null
 }
 
+# Extra cmake arguments (-DCMAKE_BUILD_TYPE=... overrides Release) apply when
+# the folder is configured the first time; WS_BUILD_TARGETS (optional) limits
+# what is built.
 ws_build() {
   local dir="$1"; shift
   if [ ! -f "$dir/build.ninja" ]; then
     cmake -S "$WS_ROOT" -B "$dir" -G Ninja -DCMAKE_BUILD_TYPE=Release "$@" >/dev/null
   fi
-  cmake --build "$dir" --parallel "$(nproc)"
+  local targets=()
+  [ -n "${WS_BUILD_TARGETS:-}" ] && targets=(--target ${WS_BUILD_TARGETS})
+  cmake --build "$dir" --parallel "$(nproc)" "${targets[@]}"
 }

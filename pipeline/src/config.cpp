@@ -238,8 +238,9 @@ std::string Pipeline::text() const {
 }
 
 Pipeline load_pipeline(const std::string& path, const std::vector<Override>& overrides) {
-  if (!fs::exists(path)) fail_config("pipeline file does not exist", in_file(path));
-  if (fs::is_directory(path)) fail_config("this is a folder, not a pipeline file", in_file(path));
+  std::error_code ec; // the throwing overloads fail on e.g. a too long name
+  if (!fs::exists(path, ec)) fail_config("pipeline file does not exist", in_file(path));
+  if (fs::is_directory(path, ec)) fail_config("this is a folder, not a pipeline file", in_file(path));
   const std::string text = read_file(path, ErrorKind::config);
   const std::string folder = fs::path(path).parent_path().string();
   return load_pipeline_text(text, path, folder.empty() ? "." : folder, overrides);
@@ -297,10 +298,16 @@ Pipeline load_pipeline_text(const std::string& text, const std::string& file, co
         throw Error(ErrorKind::config, "expected the path of an instrument profile as a string", c);
       }
       pl.profile_file = resolve(folder, prof->as_string()->get());
-      if (!fs::exists(pl.profile_file)) {
+      std::error_code ec; // not the throwing fs::exists: a too long name is a user's error
+      const fs::file_status st = fs::status(pl.profile_file, ec);
+      if (!fs::is_regular_file(st)) {
         ErrorContext c = position(file, *prof);
         c.key = "[instrument]: profile";
-        throw Error(ErrorKind::config, "instrument profile \"" + pl.profile_file + "\" does not exist", c);
+        const std::string why = fs::is_directory(st) ? "is a folder, not a file"
+                                : fs::exists(st)     ? "is not a regular file"
+                                : ec && ec != std::errc::no_such_file_or_directory ? "cannot be read: " + ec.message()
+                                                                                   : "does not exist";
+        throw Error(ErrorKind::config, "instrument profile \"" + pl.profile_file + "\" " + why, c);
       }
       toml::table pt = parse_toml(read_file(pl.profile_file, ErrorKind::config), pl.profile_file);
       // A profile is either bare keys or an [instrument] table plus a name.

@@ -1,13 +1,21 @@
 #pragma once
-// Shared machinery of Search and ObjectFocuser: the planned propagators of
+// Shared machinery of Search and ObjectFocuser: the transfer functions of
 // the coarse planes and of the refinement offsets, the background handling,
 // the parallel sweep and the dyadic refinement.
+//
+// Per plane the sweep does one pass over the padded array — spectrum × H
+// over H's support (the quarter table of propagate::TransferFunction,
+// mirrored on the fly) and zeros elsewhere, written into the slot's buffer —
+// then one in-place inverse FFT, and the metric reads the top-left h×w
+// corner of that buffer directly (no crop copy). The values are those of
+// AngularSpectrum::apply_spectrum (same tables, products and plan).
 #include "wavestack/core/error.hpp"
 #include "wavestack/core/grid.hpp"
 #include "wavestack/core/image.hpp"
+#include "wavestack/fft/fft.hpp"
 #include "wavestack/focus/metric.hpp"
 #include "wavestack/focus/search.hpp"
-#include "wavestack/propagate/angular_spectrum.hpp"
+#include "wavestack/propagate/transfer_function.hpp"
 
 #include <tbb/blocked_range.h>
 #include <tbb/parallel_for.h>
@@ -15,7 +23,9 @@
 #include <tbb/task_arena.h>
 
 #include <cmath>
+#include <complex>
 #include <cstddef>
+#include <memory>
 #include <string>
 #include <vector>
 
@@ -23,14 +33,14 @@ namespace wavestack::focus::detail {
 
 /// One thread's buffers.
 struct Slot {
-  propagate::AngularSpectrum::Workspace prop;
-  Image<cfloat> out;                ///< propagated h×w field
+  Image<cfloat> buf;                ///< ph×pw: spectrum·H, then its inverse FFT in place
+  ImageView<const cfloat> out;      ///< the propagated h×w field: top-left corner of buf
   MetricEvaluator::Scratch scratch; ///< metric scratch
   Image<float> map;                 ///< object focus: max-projection of |∇v|² (else empty)
 };
 
 struct EngineWorkspace {
-  Image<cfloat> input;    ///< h×w: field minus background
+  Image<cfloat> padded;   ///< ph×pw: field minus background in the top-left h×w corner, zeros elsewhere
   Image<cfloat> spectrum; ///< ph×pw forward spectrum, shared read-only by the plane tasks
   Image<cfloat> moved;    ///< ph×pw: spectrum moved to the refinement centre
   std::vector<Slot> slots;
@@ -64,8 +74,10 @@ public:
   Background background;
   int levels;
   std::vector<double> distances;
-  std::vector<propagate::AngularSpectrum> planes;
-  std::vector<propagate::AngularSpectrum> offsets; ///< [2j] = -step/2^(j+1), [2j+1] = +step/2^(j+1)
+  using Transfer = std::shared_ptr<const propagate::TransferFunction>;
+  std::vector<Transfer> planes;  ///< from the shared cache (propagate::cached_transfer)
+  std::vector<Transfer> offsets; ///< [2j] = -step/2^(j+1), [2j+1] = +step/2^(j+1)
+  std::shared_ptr<const fft::C2C> fwd, inv; ///< forward out of place, backward in place
 
   /// One workspace with `threads` slots (0 = the current arena's concurrency);
   /// `map` adds the object-focus max-projection buffer to each slot.
@@ -92,7 +104,7 @@ public:
       tbb::parallel_for(tbb::blocked_range<std::size_t>(a, b + 1, 1), [&](const tbb::blocked_range<std::size_t>& r) {
         Slot& s = ws.slot();
         for (std::size_t i = r.begin(); i != r.end(); ++i) {
-          planes[i].apply_spectrum(ws.spectrum, s.out, s.prop);
+          propagate(*planes[i], ws.spectrum, s);
           fn(i, s, background_at(ws, distances[i]));
         }
       });
@@ -109,22 +121,22 @@ public:
     fl *= sign;
     fc *= sign;
     fr *= sign;
-    if (levels > 0) move_spectrum(ws, planes[i].transfer(), true);
+    if (levels > 0) move_spectrum(ws, *planes[i], true);
     for (int j = 0; j < levels; ++j) {
       const double hh = hstep / 2;
-      const propagate::AngularSpectrum& om = offsets[2 * j];
-      const propagate::AngularSpectrum& op = offsets[2 * j + 1];
+      const propagate::TransferFunction& om = *offsets[2 * j];
+      const propagate::TransferFunction& op = *offsets[2 * j + 1];
       double fm = 0, fp = 0;
       tbb::this_task_arena::isolate([&] {
         tbb::parallel_invoke(
             [&] {
               Slot& s = ws.slot();
-              om.apply_spectrum(ws.moved, s.out, s.prop);
+              propagate(om, ws.moved, s);
               fm = sign * eval(s, background_at(ws, c - hh));
             },
             [&] {
               Slot& s = ws.slot();
-              op.apply_spectrum(ws.moved, s.out, s.prop);
+              propagate(op, ws.moved, s);
               fp = sign * eval(s, background_at(ws, c + hh));
             });
       });
@@ -135,12 +147,12 @@ public:
         fr = fc;
         fc = fm;
         c -= hh;
-        if (!last) move_spectrum(ws, om.transfer(), false);
+        if (!last) move_spectrum(ws, om, false);
       } else if (fp > fc) {
         fl = fc;
         fc = fp;
         c += hh;
-        if (!last) move_spectrum(ws, op.transfer(), false);
+        if (!last) move_spectrum(ws, op, false);
       } else {
         fl = fm;
         fr = fp;
@@ -157,9 +169,13 @@ public:
     return res;
   }
 
+  /// s.buf = spectrum · t (t's support, zeros elsewhere), then the inverse
+  /// FFT in place: s.out holds the propagated field.
+  void propagate(const propagate::TransferFunction& t, const Image<cfloat>& spectrum, Slot& s) const;
+
 private:
   /// moved = (from_spectrum ? spectrum : moved) · t · (ph·pw) (t = H/(ph·pw)).
-  void move_spectrum(EngineWorkspace& ws, const Image<cfloat>& t, bool from_spectrum) const;
+  void move_spectrum(EngineWorkspace& ws, const propagate::TransferFunction& t, bool from_spectrum) const;
 };
 
 } // namespace wavestack::focus::detail

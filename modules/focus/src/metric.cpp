@@ -161,13 +161,180 @@ __attribute__((target("avx2"))) std::size_t masked_sums(const float* q, const fl
   return i;
 }
 
+/// accumulate_split's row sums {Σq, Σq², Σ_even q, Σ_even q²} when the
+/// blocks are 8 pixels from pixel 0 (of every 16 pixels, 8 even then 8
+/// odd), with the pixel quantity (gradient modulus or amplitude) kept in
+/// registers; returns the count done (a multiple of 16).
+std::size_t aligned_split_sums(bool grad, const float* r0, const float* r1, float br, float bi, std::size_t n,
+                               double* out);
+
 bool available() {
   static const bool ok = __builtin_cpu_supports("avx2");
   return ok;
 }
 
+__attribute__((target("avx2"))) inline double total4(__m256d v) {
+  double a[4];
+  _mm256_storeu_pd(a, v);
+  return (a[0] + a[1]) + (a[2] + a[3]);
+}
+
+__attribute__((target("avx2"))) std::size_t aligned_split_sums(bool grad, const float* r0, const float* r1, float br,
+                                                               float bi, std::size_t n, double* out) {
+  const __m256 b8 = _mm256_setr_ps(br, bi, br, bi, br, bi, br, bi);
+  __m256d e1 = _mm256_setzero_pd(), e2 = e1, o1 = e1, o2 = e1; // even and odd blocks
+  std::size_t i = 0;
+  for (; i + 16 <= n; i += 16)
+    for (std::size_t h = 0; h < 16; h += 8) {
+      const std::size_t j = 2 * (i + h);
+      const __m256 v = grad ? _mm256_sqrt_ps(grad2_8(r0 + j, r1 + j)) : amp8(r0 + j, b8);
+      const __m256d lo = _mm256_cvtps_pd(_mm256_castps256_ps128(v)), hi = _mm256_cvtps_pd(_mm256_extractf128_ps(v, 1));
+      __m256d& a1 = h == 0 ? e1 : o1;
+      __m256d& a2 = h == 0 ? e2 : o2;
+      a1 = _mm256_add_pd(a1, _mm256_add_pd(lo, hi));
+      a2 = _mm256_add_pd(a2, _mm256_add_pd(_mm256_mul_pd(lo, lo), _mm256_mul_pd(hi, hi)));
+    }
+  const double se1 = total4(e1), se2 = total4(e2);
+  out[0] += se1 + total4(o1);
+  out[1] += se2 + total4(o2);
+  out[2] += se1;
+  out[3] += se2;
+  return i;
+}
+
 } // namespace avx2
+
+// AVX-512 version of the checkerboard sums (accumulate_split) for the
+// tamura-gradient and amplitude metrics: the pixel quantity of 16 pixels is
+// computed with the same arithmetic as the AVX2/SSE2 kernels above and
+// summed at once, without a row buffer; the even-block sums use masked adds
+// (Σ m·q with m = 0/1 is Σ q over the set bits). The double sums differ
+// from the AVX2 path in their order and in the squares, accumulated with
+// one FMA (last-bit round-off). g++ would contract the pixel quantity's
+// a·a + b·b too (C++ builds use -ffp-contract=fast): fp-contract is off
+// here so it keeps the other paths' roundings. The AVX-512 headers trip a
+// false -Wmaybe-uninitialized in g++ 12.
+#pragma GCC push_options
+#pragma GCC optimize("fp-contract=off")
+#pragma GCC diagnostic push
+#pragma GCC diagnostic ignored "-Wmaybe-uninitialized"
+#pragma GCC diagnostic ignored "-Wuninitialized"
+namespace avx512 {
+
+/// Pixel quantity of 16 pixels from the interleaved values p[0..32) of the
+/// row (grad: with the next pixel p[2..34) and the next row q[0..32)).
+/// Masked: only the float lanes in m0 (pixels 0..7) and m1 (8..15) are
+/// read (masked loads are slower: the tail only).
+template <bool Masked> __attribute__((target("avx512f"))) inline __m512 load16(__mmask16 m, const float* x) {
+  return Masked ? _mm512_maskz_loadu_ps(m, x) : _mm512_loadu_ps(x);
+}
+template <bool Grad, bool Masked>
+__attribute__((target("avx512f"))) inline __m512 quantity16(const float* p, const float* q, __m512 b, __mmask16 m0,
+                                                           __mmask16 m1) {
+  const __m512i even = _mm512_set_epi32(30, 28, 26, 24, 22, 20, 18, 16, 14, 12, 10, 8, 6, 4, 2, 0);
+  const __m512i odd = _mm512_set_epi32(31, 29, 27, 25, 23, 21, 19, 17, 15, 13, 11, 9, 7, 5, 3, 1);
+  __m512 s0, s1; // per-component squares of 8 + 8 pixels
+  const __m512 p0 = load16<Masked>(m0, p), p1 = load16<Masked>(m1, p + 16);
+  if constexpr (Grad) {
+    const __m512 dx0 = _mm512_sub_ps(load16<Masked>(m0, p + 2), p0);
+    const __m512 dx1 = _mm512_sub_ps(load16<Masked>(m1, p + 18), p1);
+    const __m512 dy0 = _mm512_sub_ps(load16<Masked>(m0, q), p0);
+    const __m512 dy1 = _mm512_sub_ps(load16<Masked>(m1, q + 16), p1);
+    s0 = _mm512_add_ps(_mm512_mul_ps(dx0, dx0), _mm512_mul_ps(dy0, dy0));
+    s1 = _mm512_add_ps(_mm512_mul_ps(dx1, dx1), _mm512_mul_ps(dy1, dy1));
+  } else {
+    const __m512 a0 = _mm512_add_ps(p0, b), a1 = _mm512_add_ps(p1, b);
+    s0 = _mm512_mul_ps(a0, a0);
+    s1 = _mm512_mul_ps(a1, a1);
+  }
+  return _mm512_sqrt_ps(
+      _mm512_add_ps(_mm512_permutex2var_ps(s0, even, s1), _mm512_permutex2var_ps(s0, odd, s1)));
+}
+
+/// The pixels among `valid` where the 0/1 mask m[0..16) is set.
+__attribute__((target("avx512f"))) inline __mmask16 set_pixels(const float* m, __mmask16 valid) {
+  return _mm512_cmp_ps_mask(_mm512_maskz_loadu_ps(valid, m), _mm512_setzero_ps(), _CMP_NEQ_OQ);
+}
+
+/// Running sums of split_sums: s over all pixels (Aligned: the odd half
+/// only), t over the masked ones; a/b: pixels 0..7 / 8..15 of each group.
+struct SplitAcc {
+  __m512d s1a, s1b, s2a, s2b, t1a, t1b, t2a, t2b;
+};
+/// Adds one group of 16 pixel values v; vlo, vhi: the valid pixels of each
+/// half; k: the mask's set pixels (not Aligned).
+template <bool Aligned>
+__attribute__((target("avx512f"))) inline void add16(SplitAcc& r, __m512 v, __mmask8 vlo, __mmask8 vhi,
+                                                    __mmask16 k) {
+  const __m512d lo = _mm512_cvtps_pd(_mm512_castps512_ps256(v));
+  const __m512d hi = _mm512_cvtps_pd(_mm256_castpd_ps(_mm512_extractf64x4_pd(_mm512_castps_pd(v), 1)));
+  if constexpr (Aligned) {
+    r.t1a = _mm512_mask_add_pd(r.t1a, vlo, r.t1a, lo);
+    r.t2a = _mm512_mask3_fmadd_pd(lo, lo, r.t2a, vlo);
+    r.s1b = _mm512_mask_add_pd(r.s1b, vhi, r.s1b, hi);
+    r.s2b = _mm512_mask3_fmadd_pd(hi, hi, r.s2b, vhi);
+  } else {
+    const __mmask8 klo = static_cast<__mmask8>(k & vlo), khi = static_cast<__mmask8>((k >> 8) & vhi);
+    r.s1a = _mm512_mask_add_pd(r.s1a, vlo, r.s1a, lo);
+    r.s1b = _mm512_mask_add_pd(r.s1b, vhi, r.s1b, hi);
+    r.s2a = _mm512_mask3_fmadd_pd(lo, lo, r.s2a, vlo);
+    r.s2b = _mm512_mask3_fmadd_pd(hi, hi, r.s2b, vhi);
+    r.t1a = _mm512_mask_add_pd(r.t1a, klo, r.t1a, lo);
+    r.t1b = _mm512_mask_add_pd(r.t1b, khi, r.t1b, hi);
+    r.t2a = _mm512_mask3_fmadd_pd(lo, lo, r.t2a, klo);
+    r.t2b = _mm512_mask3_fmadd_pd(hi, hi, r.t2b, khi);
+  }
+}
+
+/// out += {Σq, Σq², Σmq, Σmq²} over pixels [0, n) of the row at r0 (next
+/// row r1 for Grad), m the 0/1 mask (the last group of fewer than 16 pixels
+/// is masked). Aligned: the mask is known to be 1 on pixels 0..7 and 0 on
+/// 8..15 of every 16 (tile 8 from pixel 0), so the two halves go to their
+/// own sums and m is not read. Squares are accumulated with FMA.
+template <bool Grad, bool Aligned>
+__attribute__((target("avx512f"))) void split_sums(const float* r0, const float* r1, float br, float bi,
+                                                  const float* m, std::size_t n, double* out) {
+  const __m512 b = _mm512_set_ps(bi, br, bi, br, bi, br, bi, br, bi, br, bi, br, bi, br, bi, br);
+  const __m512d z = _mm512_setzero_pd();
+  SplitAcc r{z, z, z, z, z, z, z, z};
+  std::size_t i = 0;
+  for (; i + 16 <= n; i += 16)
+    add16<Aligned>(r, quantity16<Grad, false>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, 0, 0), 0xFF, 0xFF,
+                   Aligned ? 0 : set_pixels(m + i, 0xFFFF));
+  if (i < n) {
+    const std::size_t c = n - i, c0 = std::min<std::size_t>(c, 8), c1 = c - c0; // pixels left, per half
+    const __mmask16 valid = static_cast<__mmask16>((1u << c) - 1);
+    const __mmask16 m0 = static_cast<__mmask16>((1u << (2 * c0)) - 1);
+    const __mmask16 m1 = static_cast<__mmask16>((1u << (2 * c1)) - 1);
+    add16<Aligned>(r, quantity16<Grad, true>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, m0, m1),
+                   static_cast<__mmask8>(valid), static_cast<__mmask8>(valid >> 8),
+                   Aligned ? 0 : set_pixels(m + i, valid));
+  }
+  if constexpr (Aligned) { // all = even half + odd half
+    r.s1a = r.t1a;
+    r.s2a = r.t2a;
+  }
+  out[0] += _mm512_reduce_add_pd(_mm512_add_pd(r.s1a, r.s1b));
+  out[1] += _mm512_reduce_add_pd(_mm512_add_pd(r.s2a, r.s2b));
+  out[2] += _mm512_reduce_add_pd(_mm512_add_pd(r.t1a, r.t1b));
+  out[3] += _mm512_reduce_add_pd(_mm512_add_pd(r.t2a, r.t2b));
+}
+
+bool available() {
+  static const bool ok = __builtin_cpu_supports("avx512f");
+  return ok;
+}
+
+} // namespace avx512
+#pragma GCC diagnostic pop
+#pragma GCC pop_options
 #endif
+
+/// Metrics with a fused AVX-512 kernel (avx512::split_sums).
+bool fused_metric(Metric m) {
+  return m == Metric::tamura_gradient || m == Metric::integrated_amplitude || m == Metric::amplitude_variance ||
+         m == Metric::tamura_amplitude;
+}
 
 /// out += {Σq, Σq², Σmq, Σmq²} for a 0/1 mask m (m·q² = (m·q)·q).
 void masked_sums(const float* q, const float* m, std::size_t n, double* out) {
@@ -451,10 +618,38 @@ void MetricEvaluator::accumulate_split(ImageView<const cfloat> u, cfloat backgro
     count_even += even;
   }
   const double ne = static_cast<double>(count_even);
+  [[maybe_unused]] const bool grad = metric_ == Metric::tamura_gradient;
+  [[maybe_unused]] bool fused = false; // pixel quantity and sums in one pass, 16 pixels at a time
+  // Blocks of 8 from the first pixel: of every 16 pixels, 8 even then 8 odd.
+  [[maybe_unused]] const bool aligned = tile == 8 && (xa - roi_.x) % 16 == 0;
+#if defined(WAVESTACK_FOCUS_AVX2)
+  fused = avx512::available() && fused_metric(metric_);
+#endif
   for (std::size_t y = ya; y < yb; ++y) {
-    row_quantity(metric_, u, background, y, xa, n, q);
     double acc[4] = {0, 0, 0, 0}; // all, all², even blocks, even blocks²
-    masked_sums(q, mask, n, acc);
+    std::size_t done = 0; // pixels summed
+#if defined(WAVESTACK_FOCUS_AVX2)
+    if (fused) {
+      const float* r0 = reinterpret_cast<const float*>(u.row(y) + xa);
+      const float* r1 = grad ? reinterpret_cast<const float*>(u.row(y + 1) + xa) : nullptr;
+      const float br = background.real(), bi = background.imag();
+      if (grad)
+        aligned ? avx512::split_sums<true, true>(r0, r1, br, bi, mask, n, acc)
+                : avx512::split_sums<true, false>(r0, r1, br, bi, mask, n, acc);
+      else
+        aligned ? avx512::split_sums<false, true>(r0, r1, br, bi, mask, n, acc)
+                : avx512::split_sums<false, false>(r0, r1, br, bi, mask, n, acc);
+      done = n;
+    } else if (aligned && fused_metric(metric_) && avx2::available()) {
+      done = avx2::aligned_split_sums(grad, reinterpret_cast<const float*>(u.row(y) + xa),
+                                      grad ? reinterpret_cast<const float*>(u.row(y + 1) + xa) : nullptr,
+                                      background.real(), background.imag(), n, acc);
+    }
+#endif
+    if (done < n) {
+      row_quantity(metric_, u, background, y, xa + done, n - done, q);
+      masked_sums(q, mask + done, n - done, acc);
+    }
     // Even block-rows: even block-columns go to a; odd block-rows swap.
     const bool odd_row = ((y - roi_.y) / tile) % 2 == 1;
     const Moments even{ne, acc[2], acc[3]}, odd{static_cast<double>(n) - ne, acc[0] - acc[2], acc[1] - acc[3]};
@@ -506,6 +701,15 @@ double MetricEvaluator::operator()(ImageView<const cfloat> u, cfloat background,
     return spectral(u, background, s, split);
   }
   Moments m;
+#if defined(WAVESTACK_FOCUS_AVX2)
+  if (avx512::available() && fused_metric(metric_)) {
+    // One block holds the whole ROI: the split puts every pixel in a.
+    Moments rest;
+    accumulate_split(u, background, std::max(h_, w_) + 1, m, rest, s);
+    m += rest;
+    return metric_value(metric_, m);
+  }
+#endif
   accumulate(u, background, roi_.y, roi_.x, roi_.y + roi_.height, roi_.x + roi_.width,
              std::max(h_, w_) + 1, roi_.y, roi_.x, 1, &m, ImageView<float>(), s);
   return metric_value(metric_, m);

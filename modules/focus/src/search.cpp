@@ -181,13 +181,11 @@ Search::Workspace& Search::Workspace::operator=(Workspace&&) noexcept = default;
 std::vector<const void*> Search::Workspace::buffers() const {
   std::vector<const void*> b;
   if (engine) {
-    b.push_back(engine->input.data());
+    b.push_back(engine->padded.data());
     b.push_back(engine->spectrum.data());
     b.push_back(engine->moved.data());
     for (const auto& s : engine->slots) {
-      b.push_back(s.prop.padded.data());
-      b.push_back(s.prop.spectrum.data());
-      b.push_back(s.out.data());
+      b.push_back(s.buf.data());
       b.push_back(s.scratch.row.data());
       b.push_back(s.scratch.amplitude.data());
       b.push_back(s.scratch.spectrum.data());

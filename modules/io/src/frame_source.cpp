@@ -319,10 +319,14 @@ FrameSource FrameSource::open_dataset(std::unique_ptr<Impl> impl) {
     fail_hdf5(ErrorKind::input, "cannot prepare reading the dataset", ctx);
 
   // Give HDF5 a conversion buffer of one whole frame so each read converts
-  // in one pass without allocating.
+  // in one pass without allocating. At most 64 MiB (4096x4096 to float):
+  // larger frames convert in strips, and a damaged file claiming a huge
+  // frame does not make open() zero a gigabyte.
   if (impl->type != DType::f32 || H5Tget_order(type.get()) != H5T_ORDER_LE) {
     const std::size_t elems = impl->h * impl->w;
-    impl->conversion.resize(elems * std::max<std::size_t>(H5Tget_size(type.get()), sizeof(float)));
+    constexpr std::size_t max_conversion_bytes = std::size_t{64} << 20;
+    impl->conversion.resize(
+        std::min(elems * std::max<std::size_t>(H5Tget_size(type.get()), sizeof(float)), max_conversion_bytes));
     if (H5Pset_buffer(impl->xfer.get(), impl->conversion.size(), impl->conversion.data(), nullptr) < 0)
       fail_hdf5(ErrorKind::input, "cannot prepare the type conversion", ctx);
   }

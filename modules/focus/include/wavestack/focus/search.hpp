@@ -4,11 +4,12 @@
 //
 // Planned once for (h, w, grid, from, to, step, options): the coarse
 // distances are from + i·step, i = 0..S-1, S = floor((to - from)/step) + 1
-// (the last one is <= to). One propagate::AngularSpectrum per coarse plane is
-// built at construction (its transfer function costs ph·pw·8 bytes; planning
-// costs S transfer functions and two cached FFT plans; 81 planes of 512x512
-// unpadded hold 170 MB), plus 2·refine_levels small-offset propagators for
-// the refinement.
+// (the last one is <= to). The angular spectrum transfer function of each
+// coarse plane and of the 2·refine_levels small refinement offsets comes
+// from propagate's shared cache (cached_transfer: a quarter table of
+// (ph/2+1)·(pw/2+1)·8 bytes, shared with any stack or stage over the same
+// planes; 81 planes of 512x512 unpadded hold 43 MB), plus two cached FFT
+// plans.
 //
 // Per frame (run):
 //  1. background: with Background::mean the frame mean b is subtracted and
@@ -19,10 +20,13 @@
 //     border is not a sharp edge that is "in focus" at z = 0 (with the
 //     default pad_factor 1 the propagation is periodic and this step changes
 //     nothing but round-off);
-//  2. one forward FFT (AngularSpectrum::forward_spectrum), then per plane one
-//     apply_spectrum (spectrum × H(z_i), one inverse FFT, crop) and the
-//     metric on the ROI, planes in parallel with TBB (one workspace slot per
-//     thread of the arena);
+//  2. one forward FFT of the zero-padded frame, then per plane one pass
+//     that writes spectrum × H(z_i) over H's support (zeros elsewhere) into
+//     the thread's buffer, one inverse FFT in place, and the metric on the
+//     ROI read straight from the buffer's top-left h×w corner — the values
+//     of AngularSpectrum::forward_spectrum + apply_spectrum, bit for bit
+//     (tests/focus/test_sweep.cpp) — planes in parallel with TBB (one
+//     workspace slot per thread of the arena);
 //  3. the curve is judged (analyse_curve below): sure or unsure;
 //  4. refinement (sure curves only): dyadic bracket halving around the best
 //     coarse plane c with bracket [c - step, c + step]: level j evaluates
@@ -31,8 +35,8 @@
 //     extremum); after L = refine_levels levels a parabola through the final
 //     three points (spacing step/2^L) gives the distance. The field at c + δ
 //     is propagated from the spectrum moved to c (multiplied by H(c)) with
-//     the planned offset propagator H(δ); the band limit is then that of c
-//     (the product of both), not recomputed for c + δ — the
+//     the planned offset transfer function H(δ); the band limit is then that
+//     of c (the product of both), not recomputed for c + δ — the
 //     Matsushima–Shimobaba limit changes by O((Δz/window)²) only. Cost: 2·L
 //     inverse FFTs plus up to L-1 spectrum multiplications. Accuracy
 //     (tests/focus/test_search.cpp, noise-free discs at off-grid distances,
@@ -40,9 +44,13 @@
 //     (phase) of the truth, against 0.04 µm for the parabola alone
 //     (refine_levels = 0); the rest is the metric's own offset.
 //
-// Cost per frame (tests/bench/bench_focus_sweep.cpp, 512x512, 81 planes):
-// about 1.5x the bare 91 inverse FFTs; 1.2x of that is apply_spectrum's own
-// multiply and crop, the rest mostly the metric (~0.5 ns per pixel).
+// Cost per frame (tests/bench/bench_focus_sweep.cpp, 512x512, 81 planes,
+// AVX-512, a busy 2-core machine): about 1.25x the bare 91 inverse FFTs.
+// Of the 0.25, the multiply pass is 0.13..0.17 (bound by memory: the
+// spectrum, the plane's table and the buffer, each 0.5..2 MB), the metric
+// ~0.08 (tamura-gradient and its checkerboard split in one pass, ~0.2 ns
+// per pixel), the forward FFT, the background and the refinement's moves
+// the rest.
 //
 // Unsure results have distance = NaN (never a made-up number) and a reason.
 #include "wavestack/core/grid.hpp"
@@ -215,9 +223,10 @@ public:
   /// Index of the coarse plane nearest to `distance` (clamped).
   std::size_t nearest_plane(double distance) const noexcept;
 
-  /// Per-call scratch: input copy, spectrum, refinement spectrum, and one
-  /// slot (propagation buffers, output field, metric scratch) per thread of
-  /// the TBB arena it is made in. Make it in the arena that runs the search.
+  /// Per-call scratch: the padded input, its spectrum, the refinement
+  /// spectrum (ph×pw each), and one slot (a ph×pw buffer for the product
+  /// and its inverse FFT, metric scratch) per thread of the TBB arena it is
+  /// made in. Make it in the arena that runs the search.
   class Workspace {
   public:
     Workspace();
