@@ -41,14 +41,16 @@ replay_frame_source=("$build/seeds/frame_source" "$build/seeds/frame_source_regr
 
 # alone_in_hdf5 TARGET LOG: libhdf5 reads out of bounds without ASan seeing
 # it, and can so land on memory that was ours a moment ago; such a report
-# looks like ours. Replay the input alone: true when it then fails inside
-# libhdf5, or not at all (it needed HDF5 state left by earlier inputs).
+# looks like ours, and so does running out of memory (the RSS check has no
+# culprit). Replay the input alone, with a malloc limit that names the big
+# allocation: true when it then fails inside libhdf5, or not at all (it
+# needed HDF5 state left by earlier inputs).
 alone_in_hdf5() {
   local t="$1" log="$2" asan="asan_$1" input
   [ "$t" = frame_source ] || return 1
   input=$(sed -n "s/.*Test unit written to //p" "$log" | tail -n 1)
   [ -f "$input" ] || return 1
-  ASAN_OPTIONS="${!asan}" "$build/fuzz/fuzz_$t" "$input" >"$log.alone" 2>&1 && {
+  ASAN_OPTIONS="${!asan}" "$build/fuzz/fuzz_$t" -malloc_limit_mb=256 -rss_limit_mb=4096 "$input" >"$log.alone" 2>&1 && {
     echo "hdf5: does not fail when replayed alone (HDF5 state from earlier inputs); $(cut -c1-120 "$log.triage")" >"$log.triage"
     return 0
   }

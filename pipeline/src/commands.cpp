@@ -1,4 +1,5 @@
 #include "commands.hpp"
+#include "journal.hpp"
 
 #include "wavestack/core/error.hpp"
 #include "wavestack/core/log.hpp"
@@ -73,6 +74,9 @@ int cmd_run(const RunArgs& a) {
   const PlanSummary& s = engine.plan(false, a.frames);
   if (!a.quiet) print_plan(pl, s);
   if (a.resume && already_complete(pl, s)) {
+    // killed between the final rename and removing the journal
+    std::error_code ec;
+    std::filesystem::remove(RunJournal::path_for(pl.output.path), ec);
     if (!a.quiet) std::printf("%s is already complete; nothing to resume\n", pl.output.path.c_str());
     return 0;
   }

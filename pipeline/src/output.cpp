@@ -455,11 +455,13 @@ void OutputFile::finish() {
     for (const auto& w : warnings) all += w + "\n";
     sink_.set_attribute("/", "warnings", all);
   }
-  sink_.finish();
+  // The CSV copies first: the HDF5 file at its final name is the sign that
+  // everything is complete (a kill before its rename is resumed).
   for (auto& c : csv) {
     c->finish();
     csv_written_.push_back(c->path());
   }
+  sink_.finish();
   journal_->remove();
   finished_ = true;
 }
