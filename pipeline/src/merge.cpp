@@ -56,8 +56,8 @@ int cmd_merge(const MergeArgs& a) {
   const io::MergeReport r = io::merge_shards(a.shards, a.output);
   const std::vector<std::string> csv = merge_csv(r, a.output);
   if (!a.quiet) {
-    std::printf("merged %zu shards, %zu frames (source frames %lld to %lld, step %lld) into %s\n", r.shards.size(),
-                r.frames, static_cast<long long>(r.first), static_cast<long long>(r.last),
+    std::printf("merged %zu shard%s, %zu frames (source frames %lld to %lld, step %lld) into %s\n", r.shards.size(),
+                r.shards.size() == 1 ? "" : "s", r.frames, static_cast<long long>(r.first), static_cast<long long>(r.last),
                 static_cast<long long>(r.step), a.output.c_str());
     std::printf("  %zu datasets read from the shards in place, %zu copied\n", r.virtual_sets.size(),
                 r.copied_sets.size());
