@@ -14,14 +14,13 @@ import random
 import signal
 import subprocess
 import sys
-import tempfile
 import time
 
 import h5py
 import numpy as np
 
 sys.path.insert(0, os.path.dirname(__file__))
-from check_contract import expect, make_input, pipeline_text, problems, run, write, digest  # noqa: E402
+from check_contract import digest, expect, main, make_input, pipeline_text, run, write  # noqa: E402
 
 # unwrap + dry mass: per-frame images, records and a per-object table (kept
 # in the run journal until the run finishes)
@@ -277,13 +276,4 @@ def case_shards(binary, d):
 CASES = {"kill": case_kill, "refuse": case_refuse, "shards": case_shards}
 
 if __name__ == "__main__":
-    binary, case = sys.argv[1], sys.argv[2]
-    keep = os.environ.get("WAVESTACK_KEEP_TEST_DIR")
-    if keep:
-        os.makedirs(keep, exist_ok=True)
-        CASES[case](os.path.abspath(binary), keep)
-    else:
-        with tempfile.TemporaryDirectory() as d:
-            CASES[case](os.path.abspath(binary), d)
-    print("FAILED" if problems else "PASS", f"({len(problems)} problems)")
-    sys.exit(1 if problems else 0)
+    main(CASES)

@@ -494,14 +494,20 @@ def case_reference(binary, d):
 CASES = {"reference": case_reference, "autofocus": case_autofocus, "measure": case_measure, "zstack": case_zstack, "unwrap": case_unwrap, "layout": case_layout, "compression": case_compression, "errors": case_errors,
          "atomic": case_atomic, "threads": case_threads, "check": case_check}
 
-if __name__ == "__main__":
+def main(cases):
+    """Run the case named on the command line in a fresh folder (or in
+    $WAVESTACK_KEEP_TEST_DIR, to inspect a failing case's files)."""
     binary, case = sys.argv[1], sys.argv[2]
-    keep = os.environ.get("WAVESTACK_KEEP_TEST_DIR")  # inspect a failing case's files
+    keep = os.environ.get("WAVESTACK_KEEP_TEST_DIR")
     if keep:
         os.makedirs(keep, exist_ok=True)
-        CASES[case](os.path.abspath(binary), keep)
+        cases[case](os.path.abspath(binary), keep)
     else:
         with tempfile.TemporaryDirectory() as d:
-            CASES[case](os.path.abspath(binary), d)
+            cases[case](os.path.abspath(binary), d)
     print("FAILED" if problems else "PASS", f"({len(problems)} problems)")
     sys.exit(1 if problems else 0)
+
+
+if __name__ == "__main__":
+    main(CASES)
