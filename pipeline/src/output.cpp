@@ -417,7 +417,10 @@ private:
 
 void OutputFile::finish() {
   // Tables: rows streamed back from the journal, in frame order, a batch at
-  // a time, into the compound datasets and the CSV copies.
+  // a time, into the compound datasets and the CSV copies. The batch is
+  // small and of fixed size, so finishing a long run takes no more memory
+  // than a short one (tests/bench/run-long-run-check.sh).
+  constexpr std::size_t batch_values = 4096;
   std::vector<io::FrameSink::Table> tables;
   std::vector<std::unique_ptr<CsvTable>> csv;
   std::vector<std::vector<double>> batch(plan_.tables.size());
@@ -428,6 +431,7 @@ void OutputFile::finish() {
     for (std::size_t c = 0; c < t.columns.size(); ++c) cols.push_back({t.columns[c], t.integer[c], t.units[c]});
     tables.push_back(sink_.begin_table(t.name, cols, table_values_[k] / cols.size()));
     csv.push_back(std::make_unique<CsvTable>(table_csv_path(pl_.output.path, t.name), t));
+    batch[k].reserve(batch_values);
   }
   auto flush = [&](std::size_t k) {
     const std::size_t cols = plan_.tables[k].columns.size() + 1, rows = batch[k].size() / cols;
@@ -439,8 +443,9 @@ void OutputFile::finish() {
   if (!plan_.tables.empty()) {
     RunJournal::read(pl_.output.path, [&](const RunJournal::Record& r) {
       if (!r.rows || r.table >= batch.size()) return;
-      batch[r.table].insert(batch[r.table].end(), r.values, r.values + r.count);
-      if (batch[r.table].size() > 65536) flush(r.table);
+      std::vector<double>& b = batch[r.table];
+      if (!b.empty() && b.size() + r.count > batch_values) flush(r.table);
+      b.insert(b.end(), r.values, r.values + r.count);
     });
     for (std::size_t k = 0; k < batch.size(); ++k) flush(k);
   }

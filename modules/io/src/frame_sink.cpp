@@ -57,23 +57,12 @@ hid_t file_value_type(ValueType t) {
 
 /// File access of the output: no sieve buffer, so the small per-frame
 /// writes (done flags, records) reach the kernel at once, in order after the
-/// frame's images, and survive a kill of the process.
-/// The metadata cache is capped at 256 KiB: by default it grows towards the
-/// whole chunk index of a long run (tests/bench/run-long-run-check.sh),
-/// although the writer touches each entry about once.
+/// frame's images, and survive a kill of the process. (The metadata cache
+/// is capped by file_access, as for every file.)
 Hid output_access() {
   Hid fapl = file_access(true);
   if (!fapl) return fapl;
   H5Pset_sieve_buf_size(fapl.get(), 0);
-  H5AC_cache_config_t mdc{};
-  mdc.version = H5AC__CURR_CACHE_CONFIG_VERSION;
-  if (H5Pget_mdc_config(fapl.get(), &mdc) >= 0) {
-    mdc.set_initial_size = true;
-    mdc.initial_size = 256 * 1024;
-    mdc.min_size = 64 * 1024;
-    mdc.max_size = 256 * 1024;
-    H5Pset_mdc_config(fapl.get(), &mdc);
-  }
   take_hdf5_message();
   return fapl;
 }

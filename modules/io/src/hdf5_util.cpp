@@ -30,6 +30,22 @@ Hid file_access(bool strong_close) {
   if (fapl) {
     if (strong_close) H5Pset_fclose_degree(fapl.get(), H5F_CLOSE_STRONG);
     H5Pset_file_locking(fapl.get(), true, true);
+    // Metadata cache capped at 256 KiB. By default it grows towards the whole
+    // chunk index of a long stack (one v1 B-tree leaf per ~64 frames, each
+    // about 21 KiB in memory though counted as 3 KiB), although a streaming
+    // reader or writer touches each leaf only while passing it: the input's
+    // index alone made a 20 000-frame run 7 MB larger than a 1 000-frame one
+    // (tests/bench/run-long-run-check.sh).
+    H5AC_cache_config_t mdc{};
+    mdc.version = H5AC__CURR_CACHE_CONFIG_VERSION;
+    if (H5Pget_mdc_config(fapl.get(), &mdc) >= 0) {
+      mdc.set_initial_size = true;
+      mdc.initial_size = 256 * 1024;
+      mdc.min_size = 64 * 1024;
+      mdc.max_size = 256 * 1024;
+      H5Pset_mdc_config(fapl.get(), &mdc);
+    }
+    take_hdf5_message();
   }
   return fapl;
 }

@@ -81,7 +81,9 @@ inline Hid object_hid(hid_t id) { return {id, H5Oclose}; }
 /// failing to open. `strong_close` (for the output file only) makes H5Fclose
 /// really close and flush the file, so it can be renamed right after; it is
 /// not used for inputs, where two sources may share one file (holograms and
-/// background) and one closing must not close the other's datasets.
+/// background) and one closing must not close the other's datasets. The
+/// metadata cache is capped at 256 KiB, so memory stays flat over long
+/// stacks whose chunk index is larger.
 Hid file_access(bool strong_close = false);
 
 /// Open a file read-only (for listing, attributes, merging) with clear
