@@ -270,6 +270,9 @@ struct Engine::Impl {
         fc.frame = probe.source_index;
         fc.dataset = pl.input.dataset;
         try {
+          // The run processes this frame again and warns about it then
+          // (or another shard does, when --frames leaves it out).
+          const log::DroppedWarnings again_in_run;
           st.process(probe, ws.get());
         } catch (const Error& e) {
           throw e.with(fc);

@@ -140,6 +140,12 @@ def nan_pixels(img):
     img[30:32, 40] = np.nan
 
 
+def noisy_patch(img):
+    # Speckle-like noise over a patch, far above the fringes: phase residues there.
+    rng = np.random.default_rng(7)
+    img[8:40, 8:40] = rng.uniform(0, 4000, (32, 32))
+
+
 def inf_pixels(img):
     img[5, 7] = np.inf
     img[6, 7] = -np.inf
@@ -254,6 +260,10 @@ def cases() -> list[Case]:
     add("saturated uint16 frame 1 (65535) is processed with a warning", "frames",
         lambda d: good(d, edit=spoil(1, 65535)), 0, ["frame 1", "saturated", "65535"],
         success_check=warnings_attribute("frame 1", "saturated"))
+    add("noisy first frame (the planning probe): its residue warning is printed once", "frames",
+        lambda d: good(d, edit=spoil(0, noisy_patch),
+                       text=base_text(extra_stage='[[stage]]\ntype = "unwrap"\nresidue_warning = 1e-4\n')), 0,
+        ["frame 0:", "phase residues"], success_check=warnings_attribute("frame 0:", "phase residues"))
     add("12-bit camera frame 1 saturated at 4095 is processed with a warning", "frames",
         lambda d: good(d, edit=spoil(1, 4095)), 0, ["frame 1", "saturated", "12-bit"],
         success_check=warnings_attribute("frame 1", "12-bit"))

@@ -148,6 +148,9 @@ def run_case(binary, case, d):
         if errors:
             problems.append(f"an error line in a run that should succeed: {errors[0]}")
         warns = [x for x in lines if x.startswith("warning: ")]
+        repeated = sorted({x for x in warns if warns.count(x) > 1})
+        if repeated:  # e.g. the first frame's warning, once from planning and once from the run
+            problems.append(f"warnings printed more than once: {repeated[:3]}")
         for w in case.words:
             if not any(w in x for x in warns):
                 problems.append(f"no warning line mentions {w!r}")

@@ -11,6 +11,7 @@ Level current = Level::info;
 std::vector<std::string> recorded;
 std::size_t dropped = 0; // recorded past max_kept: printed, counted, not kept
 std::set<std::string> once_keys;
+int dropping = 0; // live DroppedWarnings
 
 void print(const char* prefix, const std::string& m) {
   std::fprintf(stderr, "%s%s\n", prefix, m.c_str());
@@ -35,6 +36,7 @@ void debug(const std::string& m) {
 }
 void warn(const std::string& m, const std::string& once_key) {
   std::lock_guard lock(mutex);
+  if (dropping > 0) return;
   if (!once_key.empty() && !once_keys.insert(once_key).second) return;
   if (recorded.size() < max_kept) recorded.push_back(m);
   else ++dropped;
@@ -58,6 +60,15 @@ void clear_warnings() {
   recorded.clear();
   dropped = 0;
   once_keys.clear();
+}
+
+DroppedWarnings::DroppedWarnings() {
+  std::lock_guard lock(mutex);
+  ++dropping;
+}
+DroppedWarnings::~DroppedWarnings() {
+  std::lock_guard lock(mutex);
+  --dropping;
 }
 
 } // namespace wavestack::log

@@ -31,4 +31,16 @@ std::vector<std::string> warnings_since(std::size_t first);
 std::size_t warnings_dropped();
 void clear_warnings();
 
+/// While one of these exists, warn() drops warnings: not printed, not
+/// recorded, no once_key used up. For work that is done again later and
+/// warns then, e.g. the planning pass over the first frame, which the run
+/// processes (and warns about) again.
+class DroppedWarnings {
+public:
+  DroppedWarnings();
+  ~DroppedWarnings();
+  DroppedWarnings(const DroppedWarnings&) = delete;
+  DroppedWarnings& operator=(const DroppedWarnings&) = delete;
+};
+
 } // namespace wavestack::log
