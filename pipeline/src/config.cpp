@@ -217,6 +217,12 @@ std::vector<std::int64_t> FrameRange::select(std::int64_t count) const {
   return out;
 }
 
+std::int64_t FrameRange::size(std::int64_t count) const {
+  const std::int64_t end = stop ? std::min(*stop, count) : count;
+  if (start >= end) return 0;
+  return (end - start - 1) / step + 1;
+}
+
 std::string FrameRange::str() const {
   std::string s = std::to_string(start) + ":" + (stop ? std::to_string(*stop) : "");
   if (step != 1) s += ":" + std::to_string(step);

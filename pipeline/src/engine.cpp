@@ -195,15 +195,21 @@ struct Engine::Impl {
     summary.width = source->width();
     summary.dtype = source->dtype_name();
     FrameRange range = frames_override.empty() ? pl.input.frames : FrameRange::parse(frames_override);
-    summary.frames = range.select(static_cast<std::int64_t>(source->count()));
-    if (summary.frames.empty()) {
-      ErrorContext c;
-      c.file = pl.input.path;
-      c.dataset = pl.input.dataset;
+    const auto source_count = static_cast<std::int64_t>(source->count());
+    ErrorContext in_dataset;
+    in_dataset.file = pl.input.path;
+    in_dataset.dataset = pl.input.dataset;
+    const std::int64_t selected = range.size(source_count);
+    if (selected == 0)
       fail_input("the frame selection \"" + range.str() + "\" selects no frame of the " +
-                     std::to_string(source->count()) + " in the dataset",
-                 c);
-    }
+                     std::to_string(source_count) + " in the dataset",
+                 in_dataset);
+    if (selected > max_run_frames)
+      fail_input("the frame selection \"" + range.str() + "\" selects " + std::to_string(selected) +
+                     " frames, more than one run takes (" + std::to_string(max_run_frames) +
+                     "); run it in shards with --frames a:b and join them with 'wavestack merge'",
+                 in_dataset);
+    summary.frames = range.select(source_count);
     summary.selection = range.str();
     if (!dry) {
       load_background();
@@ -216,8 +222,7 @@ struct Engine::Impl {
     // run must plan exactly as the whole run does.
     FrameState probe, probe_bg;
     if (!dry) {
-      const auto own = pl.input.frames.select(static_cast<std::int64_t>(source->count()));
-      probe.source_index = own.empty() ? summary.frames.front() : own.front();
+      probe.source_index = pl.input.frames.size(source_count) > 0 ? pl.input.frames.start : summary.frames.front();
       probe.hologram.resize(source->height(), source->width());
       source->read(static_cast<std::size_t>(probe.source_index), probe.hologram.view());
       if (has_background) probe_bg.hologram = background;

@@ -219,6 +219,9 @@ def cases() -> list[Case]:
 
     add("rank 1 data", "files", lambda d: (h5(d, holograms=np.arange(4096, dtype=np.uint16)),
                                            pipeline(d, text=base_text())), 3, ["one-dimensional", "4096", "/holograms"])
+    add("sparse dataset declaring 2^40 frames: refused, with the way to shard it", "files",
+        lambda d: (h5(d, holograms=dict(shape=(2**40, H, W), dtype=np.uint16, chunks=(1, H, W))),
+                   pipeline(d)), 3, ["holo.h5", "/holograms", "1099511627776 frames", "--frames", "merge"])
     add("rank 4 data", "files", lambda d: (h5(d, holograms=np.zeros((2, 2, H, W), np.uint16)),
                                            pipeline(d, text=base_text())), 3, ["4 dimensions", "2x2x64x64"])
     add("scalar dataset", "files", lambda d: (h5(d, holograms=np.uint16(7)), pipeline(d, text=base_text())), 3,

@@ -132,3 +132,16 @@ TEST_CASE("frame ranges follow start:stop:step") {
   CHECK_THROWS_AS(FrameRange::parse("a:b"), Error);
   CHECK_THROWS_AS(FrameRange::parse("0:4:0"), Error);
 }
+
+// size() is len(range(start, min(stop, count), step)) of Python's built-in
+// range (Python Library Reference, "Ranges") [common practice], without
+// making the list: what refuses a sparse dataset declaring 2^40 frames.
+TEST_CASE("frame range sizes match the selected lists, and need no list") {
+  for (const char* r : {"0:", "1:3", "::3", "5", "8:", "2:9:2", "0:7:7", "3:4:100", "6:7"})
+    for (std::int64_t n : {0, 1, 4, 7, 10, 11})
+      CHECK(FrameRange::parse(r).size(n) == static_cast<std::int64_t>(FrameRange::parse(r).select(n).size()));
+  const std::int64_t huge = std::int64_t{1} << 40;
+  CHECK(FrameRange::parse("0:").size(huge) == huge);
+  CHECK(FrameRange::parse("1::2").size(huge) == huge / 2);
+  CHECK(FrameRange::parse("10:20").size(huge) == 10);
+}

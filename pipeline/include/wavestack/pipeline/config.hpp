@@ -17,6 +17,11 @@ namespace wavestack::pipeline {
 
 /// A frame selection "start:stop[:step]" (stop optional, Python slice rules
 /// without negative indices).
+/// Most frames one run takes (its index list, done flags and the output's
+/// chunk index are sized by it); larger selections are split into shards
+/// with --frames and joined with `wavestack merge`.
+inline constexpr std::int64_t max_run_frames = 10'000'000;
+
 struct FrameRange {
   std::int64_t start = 0;
   std::optional<std::int64_t> stop;
@@ -24,6 +29,8 @@ struct FrameRange {
   static FrameRange parse(const std::string& text); ///< throws Error(config)
   /// Indices selected out of `count` frames.
   std::vector<std::int64_t> select(std::int64_t count) const;
+  /// How many frames select(count) returns, without making the list.
+  std::int64_t size(std::int64_t count) const;
   std::string str() const;
 };
 
