@@ -16,6 +16,10 @@
 // the per-repeat ratios (search and FFTs timed back to back) is printed
 // beside it, as it is steadier on a busy machine.
 //
+// The search runs with the library's defaults: tamura-gradient, noise split
+// in 2 px blocks (split_block_for of a field cropped to its band, as the
+// sideband stage crops it).
+//
 // Usage: bench_focus_sweep [repeats=5]
 #include "focus_test_util.hpp"
 

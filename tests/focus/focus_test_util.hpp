@@ -33,6 +33,9 @@ constexpr double depth_of_field = lambda0 * n_water / (na * na);
 /// Tolerance of the found focus: one tenth of the depth of field [common practice].
 constexpr double tolerance = depth_of_field / 10;
 
+/// Radius of the fields' spectrum: the coherent cut-off NA/λ0 (pupil_limit).
+constexpr double band = na / lambda0;
+
 inline Grid grid() {
   Grid g;
   g.dy = g.dx = pitch;

@@ -9,6 +9,7 @@
 
 #include <cmath>
 #include <random>
+#include <limits>
 #include <vector>
 
 using namespace wavestack;
@@ -22,6 +23,31 @@ Image<cfloat> random_field(std::size_t h, std::size_t w, unsigned seed) {
   Image<cfloat> u(h, w);
   for (auto& v : u) v = cfloat(1.0f + g(rng), g(rng));
   return u;
+}
+
+/// A random field u plus the background b = 0.25 - 0.5i, and the pixel
+/// quantity of the tile tests in double: |v|, or the forward-difference
+/// gradients of v = u + b [common practice]. NaN where a forward
+/// difference leaves the frame.
+struct ShiftedField {
+  Image<cfloat> u;
+  cfloat bf{0.25f, -0.5f};
+  std::complex<double> b{0.25, -0.5};
+  std::complex<double> v(std::size_t y, std::size_t x) const { return std::complex<double>(u(y, x)) + b; }
+  double quantity(Metric m, std::size_t y, std::size_t x) const {
+    const bool grad = m == Metric::tamura_gradient || m == Metric::gradient_energy;
+    if (grad && (y + 1 >= u.height() || x + 1 >= u.width())) return std::numeric_limits<double>::quiet_NaN();
+    if (m == Metric::tamura_gradient) return std::sqrt(std::norm(v(y, x + 1) - v(y, x)) + std::norm(v(y + 1, x) - v(y, x)));
+    if (m == Metric::gradient_energy)
+      return std::pow(std::abs(v(y, x + 1)) - std::abs(v(y, x)), 2) + std::pow(std::abs(v(y + 1, x)) - std::abs(v(y, x)), 2);
+    return std::abs(v(y, x));
+  }
+};
+
+void add_pixel(Moments& t, double q) {
+  t.n += 1;
+  t.s1 += q;
+  t.s2 += q * q;
 }
 
 /// Independent reference: the metric over the ROI computed pixel by pixel
@@ -146,10 +172,7 @@ TEST_CASE("checkerboard halves match a pixel-by-pixel double computation") {
   // path, the others the masked one. Tolerance 1e-6 relative: float pixel
   // quantities (rounded to 6e-8) summed in double.
   const std::size_t h = 29, w = 75;
-  const Image<cfloat> u = random_field(h, w, 5);
-  const cfloat bf(0.25f, -0.5f);
-  const std::complex<double> b(0.25, -0.5);
-  auto v = [&](std::size_t y, std::size_t x) { return std::complex<double>(u(y, x)) + b; };
+  const ShiftedField f{random_field(h, w, 5)};
   struct Case {
     Roi roi;
     std::size_t tile;
@@ -160,28 +183,56 @@ TEST_CASE("checkerboard halves match a pixel-by-pixel double computation") {
                            Metric::gradient_energy}) {
       const Roi r = c.roi.whole() ? Roi{0, 0, h, w} : c.roi;
       INFO(info(m).name << " roi " << r.y << "," << r.x << " " << r.height << "x" << r.width << " tile " << c.tile);
-      const bool grad = m == Metric::tamura_gradient || m == Metric::gradient_energy;
       Moments want[2];
       for (std::size_t y = r.y; y < r.y + r.height; ++y)
-        for (std::size_t x = r.x; x < r.x + r.width; ++x) {
-          if (grad && (y + 1 >= h || x + 1 >= w)) continue; // forward differences
-          double q = std::abs(v(y, x));
-          if (m == Metric::tamura_gradient) q = std::sqrt(std::norm(v(y, x + 1) - v(y, x)) + std::norm(v(y + 1, x) - v(y, x)));
-          if (m == Metric::gradient_energy)
-            q = std::pow(std::abs(v(y, x + 1)) - std::abs(v(y, x)), 2) + std::pow(std::abs(v(y + 1, x)) - std::abs(v(y, x)), 2);
-          Moments& t = want[((y - r.y) / c.tile + (x - r.x) / c.tile) % 2];
-          t.n += 1;
-          t.s1 += q;
-          t.s2 += q * q;
-        }
+        for (std::size_t x = r.x; x < r.x + r.width; ++x)
+          if (const double q = f.quantity(m, y, x); !std::isnan(q))
+            add_pixel(want[((y - r.y) / c.tile + (x - r.x) / c.tile) % 2], q);
       MetricEvaluator ev(m, h, w, c.roi, focus_test::grid());
       auto s = ev.make_scratch();
       Moments got[2];
-      ev.accumulate_split(u, bf, c.tile, got[0], got[1], s);
+      ev.accumulate_split(f.u, f.bf, c.tile, got[0], got[1], s);
       for (int k = 0; k < 2; ++k) {
         CHECK(got[k].n == want[k].n);
         CHECK(got[k].s1 == Approx(want[k].s1).epsilon(1e-6));
         CHECK(got[k].s2 == Approx(want[k].s2).epsilon(1e-6));
+      }
+    }
+}
+
+TEST_CASE("tile moments split into even and odd blocks match a pixel-by-pixel double computation") {
+  // accumulate with block > 0 (the object focuser's store): per tile of
+  // `tile` pixels, the moments of its pixels in even and in odd blocks of a
+  // block×block checkerboard anchored at pixel (0,0), against the
+  // definitions of the test above evaluated in double pixel by pixel
+  // [common practice]. Rectangles and tile grids not anchored at 0, blocks
+  // that do and do not divide the tile. Tolerance 1e-6 relative.
+  const std::size_t h = 31, w = 70;
+  const ShiftedField f{random_field(h, w, 9)};
+  struct Case {
+    std::size_t y0, x0, y1, x1, tile, ty0, tx0, block;
+  };
+  for (const Case c : {Case{0, 0, h, w, 8, 0, 0, 2}, Case{0, 0, h, w, 8, 0, 0, 3}, Case{3, 5, 27, 61, 6, 3, 5, 2},
+                       Case{1, 2, 30, 69, 7, 0, 0, 1}})
+    for (const Metric m : {Metric::tamura_gradient, Metric::amplitude_variance}) {
+      INFO(info(m).name << " rect " << c.y0 << "," << c.x0 << ".." << c.y1 << "," << c.x1 << " tile " << c.tile
+                        << " block " << c.block);
+      const std::size_t tiles_x = (c.x1 - c.tx0 + c.tile - 1) / c.tile, tiles_y = (c.y1 - c.ty0 + c.tile - 1) / c.tile;
+      std::vector<Moments> want(2 * tiles_x * tiles_y), got(want.size());
+      for (std::size_t y = c.y0; y < c.y1; ++y)
+        for (std::size_t x = c.x0; x < c.x1; ++x)
+          if (const double q = f.quantity(m, y, x); !std::isnan(q))
+            add_pixel(want[2 * (((y - c.ty0) / c.tile) * tiles_x + (x - c.tx0) / c.tile) + (y / c.block + x / c.block) % 2],
+                      q);
+      MetricEvaluator ev(m, h, w, Roi{}, focus_test::grid());
+      auto s = ev.make_scratch();
+      ev.accumulate(f.u, f.bf, c.y0, c.x0, c.y1, c.x1, c.tile, c.ty0, c.tx0, tiles_x, got.data(), ImageView<float>(), s,
+                    c.block);
+      for (std::size_t k = 0; k < want.size(); ++k) {
+        INFO("entry " << k);
+        CHECK(got[k].n == want[k].n);
+        CHECK(got[k].s1 == Approx(want[k].s1).epsilon(1e-6).margin(1e-12));
+        CHECK(got[k].s2 == Approx(want[k].s2).epsilon(1e-6).margin(1e-12));
       }
     }
 }

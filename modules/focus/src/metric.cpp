@@ -286,31 +286,55 @@ __attribute__((target("avx512f"))) inline void add16(SplitAcc& r, __m512 v, __mm
   }
 }
 
+/// Lane order that puts the even-block pixels of every group of 16 first:
+/// for blocks of 1, 2, 4 or 8 pixels (the pattern repeats every 16 pixels,
+/// and each group has 8 pixels of either kind). lane[j] = source lane.
+struct LaneOrder {
+  int lane[16];
+};
+
 /// out += {Σq, Σq², Σmq, Σmq²} over pixels [0, n) of the row at r0 (next
 /// row r1 for Grad), m the 0/1 mask (the last group of fewer than 16 pixels
-/// is masked). Aligned: the mask is known to be 1 on pixels 0..7 and 0 on
-/// 8..15 of every 16 (tile 8 from pixel 0), so the two halves go to their
-/// own sums and m is not read. Squares are accumulated with FMA.
-template <bool Grad, bool Aligned>
+/// is masked). Mode masked: m is read. Mode aligned: the mask is known to
+/// be 1 on pixels 0..7 and 0 on 8..15 of every 16 (tile 8 from pixel 0), so
+/// the two halves go to their own sums and m is not read. Mode permuted:
+/// the same after reordering each group's lanes by `order` (blocks of 1,
+/// 2, 4 or 8 at any phase). Squares are accumulated with FMA.
+enum class SplitMode { masked, aligned, permuted };
+template <bool Grad, SplitMode Mode>
 __attribute__((target("avx512f"))) void split_sums(const float* r0, const float* r1, float br, float bi,
-                                                  const float* m, std::size_t n, double* out) {
+                                                  const float* m, std::size_t n, double* out,
+                                                  const LaneOrder* order = nullptr) {
+  constexpr bool halves = Mode != SplitMode::masked;
   const __m512 b = _mm512_set_ps(bi, br, bi, br, bi, br, bi, br, bi, br, bi, br, bi, br, bi, br);
   const __m512d z = _mm512_setzero_pd();
+  __m512i idx = _mm512_setzero_si512();
+  if constexpr (Mode == SplitMode::permuted) idx = _mm512_loadu_si512(order->lane);
+  auto arrange = [&](__m512 v) {
+    if constexpr (Mode == SplitMode::permuted) return _mm512_permutexvar_ps(idx, v);
+    else return v;
+  };
   SplitAcc r{z, z, z, z, z, z, z, z};
   std::size_t i = 0;
   for (; i + 16 <= n; i += 16)
-    add16<Aligned>(r, quantity16<Grad, false>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, 0, 0), 0xFF, 0xFF,
-                   Aligned ? 0 : set_pixels(m + i, 0xFFFF));
+    add16<halves>(r, arrange(quantity16<Grad, false>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, 0, 0)), 0xFF, 0xFF,
+                  halves ? 0 : set_pixels(m + i, 0xFFFF));
   if (i < n) {
     const std::size_t c = n - i, c0 = std::min<std::size_t>(c, 8), c1 = c - c0; // pixels left, per half
-    const __mmask16 valid = static_cast<__mmask16>((1u << c) - 1);
+    __mmask16 valid = static_cast<__mmask16>((1u << c) - 1);
     const __mmask16 m0 = static_cast<__mmask16>((1u << (2 * c0)) - 1);
     const __mmask16 m1 = static_cast<__mmask16>((1u << (2 * c1)) - 1);
-    add16<Aligned>(r, quantity16<Grad, true>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, m0, m1),
-                   static_cast<__mmask8>(valid), static_cast<__mmask8>(valid >> 8),
-                   Aligned ? 0 : set_pixels(m + i, valid));
+    const __m512 v = arrange(quantity16<Grad, true>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, m0, m1));
+    if constexpr (Mode == SplitMode::permuted) { // lane j holds source lane order->lane[j]
+      __mmask16 moved = 0;
+      for (int j = 0; j < 16; ++j)
+        if (valid >> order->lane[j] & 1u) moved = static_cast<__mmask16>(moved | (1u << j));
+      valid = moved;
+    }
+    add16<halves>(r, v, static_cast<__mmask8>(valid), static_cast<__mmask8>(valid >> 8),
+                  halves ? 0 : set_pixels(m + i, valid));
   }
-  if constexpr (Aligned) { // all = even half + odd half
+  if constexpr (halves) { // all = even half + odd half
     r.s1a = r.t1a;
     r.s2a = r.t2a;
   }
@@ -571,7 +595,8 @@ MetricEvaluator::Scratch MetricEvaluator::make_scratch() const {
 
 void MetricEvaluator::accumulate(ImageView<const cfloat> u, cfloat background, std::size_t y0, std::size_t x0,
                                  std::size_t y1, std::size_t x1, std::size_t tile, std::size_t ty0, std::size_t tx0,
-                                 std::size_t tiles_x, Moments* tiles, ImageView<float> map, Scratch& s) const {
+                                 std::size_t tiles_x, Moments* tiles, ImageView<float> map, Scratch& s,
+                                 std::size_t block) const {
   if (u.height() != h_ || u.width() != w_) fail_internal("focus metric: the field does not have the planned size");
   if (s.row.width() < w_) fail_internal("focus metric: the scratch was made by another evaluator");
   float* q = s.row.data();
@@ -584,6 +609,36 @@ void MetricEvaluator::accumulate(ImageView<const cfloat> u, cfloat background, s
   const std::size_t ya = std::max(y0, d.y0), yb = std::min(y1, d.y1);
   const std::size_t xa = std::max(x0, d.x0), xb = std::min(x1, d.x1);
   if (ya >= yb || xa >= xb) return;
+  if (block > 0) {
+    // mask[i] = 1 where pixel column xa+i is in an even block column; in an
+    // odd block row the blocks swap.
+    float* mask = s.mask.data();
+    for (std::size_t x = xa; x < xb; ++x) mask[x - xa] = (x / block) % 2 == 0 ? 1.0f : 0.0f;
+    for (std::size_t y = ya; y < yb; ++y) {
+      row_quantity(metric_, u, background, y, xa, xb - xa, q);
+      const bool odd_row = (y / block) % 2 == 1;
+      Moments* trow = tiles + 2 * ((y - ty0) / tile) * tiles_x;
+      std::size_t x = xa;
+      while (x < xb) {
+        const std::size_t tx = (x - tx0) / tile;
+        const std::size_t end = std::min(xb, tx0 + (tx + 1) * tile), len = end - x;
+        double acc[4] = {0, 0, 0, 0}; // all, all², mask, mask²
+        masked_sums(q + (x - xa), mask + (x - xa), len, acc);
+        double ones = 0;
+        for (std::size_t i = x - xa; i < end - xa; ++i) ones += mask[i];
+        Moments& even = trow[2 * tx + (odd_row ? 1 : 0)];
+        Moments& odd = trow[2 * tx + (odd_row ? 0 : 1)];
+        even.n += ones;
+        even.s1 += acc[2];
+        even.s2 += acc[3];
+        odd.n += static_cast<double>(len) - ones;
+        odd.s1 += acc[0] - acc[2];
+        odd.s2 += acc[1] - acc[3];
+        x = end;
+      }
+    }
+    return;
+  }
   for (std::size_t y = ya; y < yb; ++y) {
     row_quantity(metric_, u, background, y, xa, xb - xa, q);
     Moments* trow = tiles + ((y - ty0) / tile) * tiles_x;
@@ -622,23 +677,35 @@ void MetricEvaluator::accumulate_split(ImageView<const cfloat> u, cfloat backgro
   [[maybe_unused]] bool fused = false; // pixel quantity and sums in one pass, 16 pixels at a time
   // Blocks of 8 from the first pixel: of every 16 pixels, 8 even then 8 odd.
   [[maybe_unused]] const bool aligned = tile == 8 && (xa - roi_.x) % 16 == 0;
+  // Blocks of 1, 2, 4 or 8 at any phase: the same after reordering lanes.
+  [[maybe_unused]] const bool periodic = !aligned && 16 % (2 * tile) == 0 && n >= 16;
 #if defined(WAVESTACK_FOCUS_AVX2)
   fused = avx512::available() && fused_metric(metric_);
+  avx512::LaneOrder order{};
+  if (periodic) {
+    int k = 0;
+    for (int even = 1; even >= 0; --even)
+      for (int j = 0; j < 16; ++j)
+        if ((mask[j] != 0.0f) == (even == 1)) order.lane[k++] = j;
+  }
 #endif
   for (std::size_t y = ya; y < yb; ++y) {
     double acc[4] = {0, 0, 0, 0}; // all, all², even blocks, even blocks²
     std::size_t done = 0; // pixels summed
 #if defined(WAVESTACK_FOCUS_AVX2)
     if (fused) {
+      using avx512::SplitMode;
       const float* r0 = reinterpret_cast<const float*>(u.row(y) + xa);
       const float* r1 = grad ? reinterpret_cast<const float*>(u.row(y + 1) + xa) : nullptr;
       const float br = background.real(), bi = background.imag();
       if (grad)
-        aligned ? avx512::split_sums<true, true>(r0, r1, br, bi, mask, n, acc)
-                : avx512::split_sums<true, false>(r0, r1, br, bi, mask, n, acc);
+        aligned    ? avx512::split_sums<true, SplitMode::aligned>(r0, r1, br, bi, mask, n, acc)
+        : periodic ? avx512::split_sums<true, SplitMode::permuted>(r0, r1, br, bi, mask, n, acc, &order)
+                   : avx512::split_sums<true, SplitMode::masked>(r0, r1, br, bi, mask, n, acc);
       else
-        aligned ? avx512::split_sums<false, true>(r0, r1, br, bi, mask, n, acc)
-                : avx512::split_sums<false, false>(r0, r1, br, bi, mask, n, acc);
+        aligned    ? avx512::split_sums<false, SplitMode::aligned>(r0, r1, br, bi, mask, n, acc)
+        : periodic ? avx512::split_sums<false, SplitMode::permuted>(r0, r1, br, bi, mask, n, acc, &order)
+                   : avx512::split_sums<false, SplitMode::masked>(r0, r1, br, bi, mask, n, acc);
       done = n;
     } else if (aligned && fused_metric(metric_) && avx2::available()) {
       done = avx2::aligned_split_sums(grad, reinterpret_cast<const float*>(u.row(y) + xa),

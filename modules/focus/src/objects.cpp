@@ -19,13 +19,14 @@ struct ObjectFocuser::Impl {
   Metric metric;
   detail::Engine engine;
   MetricEvaluator frame_eval;
-  std::size_t tile, tiles_y, tiles_x;
+  std::size_t tile, block, tiles_y, tiles_x;
 
-  Impl(std::size_t h, std::size_t w, const Grid& grid, double from, double to, double step, const SearchOptions& o)
-      : metric(resolve(o.metric)),
-        engine(h, w, grid, from, to, step, o.pad_factor, o.band_limit, o.background, o.refine_levels),
-        frame_eval(metric, h, w, Roi{}, grid), tile(o.split_tile), tiles_y((h + o.split_tile - 1) / o.split_tile),
-        tiles_x((w + o.split_tile - 1) / o.split_tile) {}
+  Impl(std::size_t h, std::size_t w, const Grid& grid, double from, double to, double step, const ObjectOptions& oo)
+      : metric(resolve(oo.search.metric)),
+        engine(h, w, grid, from, to, step, oo.search.pad_factor, oo.search.band_limit, oo.search.background,
+               oo.search.refine_levels),
+        frame_eval(metric, h, w, Roi{}, grid), tile(oo.tile), block(oo.search.split_tile),
+        tiles_y((h + oo.tile - 1) / oo.tile), tiles_x((w + oo.tile - 1) / oo.tile) {}
 };
 
 struct ObjectFocuser::Workspace::Data {
@@ -52,13 +53,14 @@ ObjectFocuser::ObjectFocuser(std::size_t h, std::size_t w, const Grid& grid, dou
     fail_config("object focus: the metric '" + std::string(info(o.metric).name) +
                 "' cannot be summed over tiles; choose a moment metric such as tamura-gradient");
   if (!(o.min_snr >= 0) || !(o.flat_tolerance >= 0)) fail_config("object focus: min_snr and flat_tolerance must be >= 0");
-  if (o.split_tile == 0) fail_config("object focus: split_tile must be at least 1 pixel");
+  if (options_.search.split_tile == 0) options_.search.split_tile = split_block_for(grid, o.band);
+  if (options.tile == 0) fail_config("object focus: tile must be at least 1 pixel");
   if (!(options.threshold > 0)) fail_config("object focus: threshold must be positive");
   if (!(options.min_contrast >= 0 && options.min_contrast < 1)) fail_config("object focus: min_contrast must be in [0, 1)");
   if (!(options.smooth_px >= 0 && std::isfinite(options.smooth_px))) fail_config("object focus: smooth_px must be >= 0");
   if (options.min_area == 0 || options.max_objects == 0)
     fail_config("object focus: min_area and max_objects must be at least 1");
-  impl_ = std::make_unique<Impl>(h, w, grid, from, to, step, o);
+  impl_ = std::make_unique<Impl>(h, w, grid, from, to, step, options_);
 }
 
 ObjectFocuser::~ObjectFocuser() = default;
@@ -75,7 +77,7 @@ ObjectFocuser::Workspace ObjectFocuser::make_workspace() const {
   Workspace::Data& d = *ws.d;
   d.ew = m.engine.make_workspace(m.frame_eval, true);
   const std::size_t s = planes();
-  d.store.assign(s * m.tiles_y * m.tiles_x, Moments{});
+  d.store.assign(2 * s * m.tiles_y * m.tiles_x, Moments{});
   d.split.assign(s, nan);
   d.curve.assign(s, nan);
   d.sorted.resize(m.engine.h * m.engine.w);
@@ -91,13 +93,16 @@ ObjectFocuser::Workspace ObjectFocuser::make_workspace() const {
 
 namespace {
 
-/// Sum the tile moments of tile rows [ty0, ty1) and columns [tx0, tx1) into
-/// the two checkerboard halves.
+/// Sum the moments of tile rows [ty0, ty1) and columns [tx0, tx1) into the
+/// two checkerboard halves (each tile holds its even and its odd blocks).
 void halves(const Moments* t, std::size_t tiles_x, std::size_t ty0, std::size_t ty1, std::size_t tx0,
             std::size_t tx1, Moments& a, Moments& b) {
   a = b = Moments{};
   for (std::size_t ty = ty0; ty < ty1; ++ty)
-    for (std::size_t tx = tx0; tx < tx1; ++tx) ((ty + tx) % 2 ? b : a) += t[ty * tiles_x + tx];
+    for (std::size_t tx = tx0; tx < tx1; ++tx) {
+      a += t[2 * (ty * tiles_x + tx)];
+      b += t[2 * (ty * tiles_x + tx) + 1];
+    }
 }
 
 /// Median of v[0..n) (reordered).
@@ -111,11 +116,11 @@ float median_of(std::vector<float>& v) {
 
 void ObjectFocuser::run(ImageView<const cfloat> field, ObjectTable& out, Workspace& ws) const {
   const Impl& m = *impl_;
-  if (!ws.d || ws.d->store.size() != planes() * m.tiles_y * m.tiles_x)
+  if (!ws.d || ws.d->store.size() != 2 * planes() * m.tiles_y * m.tiles_x)
     fail_internal("object focus: the workspace was made by another focuser");
   Workspace::Data& d = *ws.d;
   const detail::Engine& e = m.engine;
-  const std::size_t s = planes(), h = e.h, w = e.w, nt = m.tiles_y * m.tiles_x;
+  const std::size_t s = planes(), h = e.h, w = e.w, nt = 2 * m.tiles_y * m.tiles_x; // two entries per tile
   const SearchOptions& so = options_.search;
   e.prepare(field, d.ew);
   for (auto& slot : d.ew.slots) slot.map.fill(0.0f);
@@ -124,7 +129,7 @@ void ObjectFocuser::run(ImageView<const cfloat> field, ObjectTable& out, Workspa
   e.sweep(0, s - 1, d.ew, [&](std::size_t i, detail::Slot& slot, cfloat bz) {
     Moments* t = d.store.data() + i * nt;
     std::fill(t, t + nt, Moments{});
-    m.frame_eval.accumulate(slot.out, bz, 0, 0, h, w, m.tile, 0, 0, m.tiles_x, t, slot.map, slot.scratch);
+    m.frame_eval.accumulate(slot.out, bz, 0, 0, h, w, m.tile, 0, 0, m.tiles_x, t, slot.map, slot.scratch, m.block);
   });
   Image<float>& map = d.ew.slots.front().map;
   for (std::size_t k = 1; k < d.ew.slots.size(); ++k) {

@@ -171,6 +171,15 @@ CurveVerdict judge_curve(std::span<const double> curve, std::span<const double> 
   return best;
 }
 
+std::size_t split_block_for(const Grid& grid, double band) {
+  const double pitch = std::min(grid.dx, grid.dy);
+  if (!(pitch > 0) || !std::isfinite(pitch)) return 2;
+  const double nyquist = 0.5 / pitch;
+  if (!(band > 0) || !std::isfinite(band) || band > nyquist) band = nyquist;
+  const double px = 0.61 / (band * pitch);
+  return std::max<std::size_t>(2, static_cast<std::size_t>(std::ceil(px - 1e-9)));
+}
+
 // --- Search -----------------------------------------------------------------
 
 Search::Workspace::Workspace() = default;
@@ -201,7 +210,7 @@ Search::Search(std::size_t h, std::size_t w, const Grid& grid, double from, doub
     : options_(options), metric_(resolve(options.metric)) {
   if (!(options.min_snr >= 0) || !(options.flat_tolerance >= 0))
     fail_config("focus search: min_snr and flat_tolerance must be >= 0");
-  if (options.split_tile == 0) fail_config("focus search: split_tile must be at least 1 pixel");
+  if (options_.split_tile == 0) options_.split_tile = split_block_for(grid, options_.band);
   evaluator_ = std::make_unique<MetricEvaluator>(metric_, h, w, options.roi, grid, options.spectral_band_low,
                                                  options.spectral_band_high);
   engine_ = std::make_shared<detail::Engine>(h, w, grid, from, to, step, options.pad_factor, options.band_limit,

@@ -108,6 +108,11 @@ public:
                                 std::to_string(mx) + ".." + std::to_string(w_ - mx) +
                                 " (the border and what it spreads over the sweep are left out)";
     }
+    // Noise-split blocks as wide as the field's noise correlation (its band
+    // is the coherent cut-off NA/λ0 when the NA is known).
+    const double na = ctx.instrument().numerical_aperture;
+    opt_.band = na > 0 ? na / in.grid.wavelength : 0.0;
+    opt_.split_tile = focus::split_block_for(in.grid, opt_.band);
     if (objects_) {
       focus::ObjectOptions oo;
       oo.search = opt_;
@@ -122,7 +127,7 @@ public:
     s << distances_.size() << " planes from " << format_length(distances_.front()) << " to "
       << format_length(distances_.back()) << " (step " << format_length(step_) << "), metric "
       << focus::info(focus::resolve(opt_.metric)).name << (track_ ? ", tracked from frame to frame" : "")
-      << (objects_ ? ", per object" : "");
+      << (objects_ ? ", per object" : "") << "; noise split in " << opt_.split_tile << " px blocks";
     notes_["autofocus"] = s.str();
     Shape out = in;
     out.focus_available = true;

@@ -177,9 +177,13 @@ public:
   /// columns, tile side `tile` pixels, tile (0,0) at (ty0, tx0)). Also
   /// max-accumulates the complex gradient energy |∇v|² into `map` (h×w,
   /// may be empty) when `map` is not empty. Used by the object focuser.
+  /// With `block` > 0 every tile has two entries: tiles[2k] sums the pixels
+  /// of the even and tiles[2k+1] those of the odd blocks of a checkerboard
+  /// of block×block pixels with block (0,0) at pixel (0,0) — the noise
+  /// split of search.hpp, inside each tile.
   void accumulate(ImageView<const cfloat> u, cfloat background, std::size_t y0, std::size_t x0, std::size_t y1,
                   std::size_t x1, std::size_t tile, std::size_t ty0, std::size_t tx0, std::size_t tiles_x,
-                  Moments* tiles, ImageView<float> map, Scratch& s) const;
+                  Moments* tiles, ImageView<float> map, Scratch& s, std::size_t block = 0) const;
 
   /// Moments of a moment metric over the ROI split into a checkerboard of
   /// tile×tile blocks (block (0,0) at the ROI's corner): `a` gets the blocks

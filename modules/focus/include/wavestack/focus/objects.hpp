@@ -4,7 +4,8 @@
 //
 // One sweep over the S coarse planes (one forward FFT, S inverse FFTs,
 // parallel over planes) computes, per plane, the moments of the metric's
-// pixel quantity on a grid of tiles (side = options.search.split_tile) and
+// pixel quantity on a grid of tiles (side = options.tile; per tile, its
+// even and its odd blocks of the noise split, side options.search.split_tile) and
 // the per-pixel maximum over the planes of the complex gradient energy
 // |∇v|² — a map in which every object is sharp wherever its own focus lies.
 // Then:
@@ -15,12 +16,12 @@
 //     pixels are the objects (at most max_objects, the largest kept);
 //  2. each object's box (bounding box + margin, clamped to the frame,
 //     expanded outward to whole tiles) is its ROI; its focus curve is the
-//     sum of its tiles' moments, judged as in search.hpp (checkerboard split
-//     of the same tiles), and refined with 2·refine_levels extra inverse
+//     sum of its tiles' moments, judged as in search.hpp (the same
+//     checkerboard split, summed over the box's tiles), and refined with 2·refine_levels extra inverse
 //     FFTs of the whole frame, evaluating the metric on the box only;
 //  3. the frame as a whole gets the same treatment (FocusResult `frame`).
-// Cost: (S + 2·L·(objects + 1)) inverse FFTs per frame; memory S·tiles·24
-// bytes for the tile moments (81 planes, 512x512, 8 px tiles: 8 MB).
+// Cost: (S + 2·L·(objects + 1)) inverse FFTs per frame; memory S·tiles·48
+// bytes for the tile moments (81 planes, 512x512, 8 px tiles: 16 MB).
 //
 // Only moment metrics (metric.hpp is_moment_metric) can be summed over
 // tiles: spectral_energy is rejected with Error(config).
@@ -55,6 +56,10 @@ struct ObjectOptions {
   std::size_t margin = 8;
   /// At most this many objects, the largest kept (default 64). >= 1.
   std::size_t max_objects = 64;
+  /// Side (pixels) of the tiles the moments are kept on; boxes are whole
+  /// tiles (default 8). Independent of the noise split's block side
+  /// (search.split_tile), which may be smaller. >= 1.
+  std::size_t tile = 8;
 };
 
 /// One row of the object table.

@@ -121,20 +121,32 @@ struct SearchOptions {
   /// The peak must stand min_snr times the curve's noise above the higher
   /// of its two side minima (default 12; see analyse_curve). Measured with
   /// tamura-gradient on 128x128 frames, NA 0.75, pitch 0.25 µm, pupil-limited
-  /// noise σ = 0.02, 81 planes: 60 object-free frames gave snr median 4.3,
-  /// max 7.7 (17-plane windows: max 7.2); 60 discs of radius 1.5..2.5 µm
-  /// (amplitude, phase, mixed, ±15 µm) gave snr >= 17.6. >= 0.
+  /// noise σ = 0.02, 81 planes, noise split in 3 px blocks (split_tile): 60
+  /// object-free frames gave snr median 4.9, max 8.2; 60 discs of radius
+  /// 1.5..2.5 µm (amplitude, phase, mixed, ±15 µm) gave snr >= 14.3. >= 0.
   double min_snr = 12.0;
   /// Curves whose span is below flat_tolerance·max|value| are flat
   /// (default 1e-6: float round-off of the pixel sums). >= 0.
   double flat_tolerance = 1e-6;
-  /// Side (pixels) of the checkerboard tiles that split the ROI into two
-  /// interleaved halves for the noise estimate (default 8: about twice the
-  /// lateral correlation length λ0/NA ≈ 3.4 px of a NA 0.75 field at 0.25 µm
-  /// pitch, so the halves' noise is nearly independent, while objects of a
-  /// few tiles are still shared evenly). >= 1. spectral_energy splits its
-  /// frequency bins instead (metric.hpp).
-  std::size_t split_tile = 8;
+  /// Radius (cycles/m) of the field's spectrum: the coherent cut-off
+  /// NA/λ0 of the microscope. Sets the default split_tile. 0 (default) =
+  /// unknown: the grid's Nyquist frequency, as for a field the sideband
+  /// stage cropped to its band.
+  double band = 0.0;
+  /// Side (pixels) of the checkerboard blocks that split the ROI into two
+  /// interleaved halves for the noise estimate (analyse_curve). Blocks as
+  /// wide as the noise's correlation length keep the halves' noise nearly
+  /// independent; smaller ones share every object more evenly between the
+  /// halves — an object the halves see differently leaves its own curve in
+  /// their difference, which then looks like noise. 0 (default) =
+  /// split_block_for(grid, band). Measured with tamura-gradient, 128x128
+  /// frames, NA 0.75, pitch 0.25 µm, noise σ = 0.02, 81 planes, 60 frames
+  /// each (object-free: snr max; single discs of radius 1.5..2.5 µm at
+  /// ±15 µm: snr min, unsure count): blocks of 8 px 7.2 / 5.4, 16 unsure;
+  /// 3 px (split_block_for) 8.2 / 14.3, none unsure; 2 px 11.6 / 29, none
+  /// unsure but object-free frames close to min_snr. spectral_energy splits
+  /// its frequency bins instead (metric.hpp).
+  std::size_t split_tile = 0;
   /// spectral_energy band (cycles/m), 0 = defaults (metric.hpp).
   double spectral_band_low = 0.0, spectral_band_high = 0.0;
 };
@@ -198,6 +210,15 @@ struct FocusResult {
   std::vector<double> curve;       ///< S metric values; NaN for planes not evaluated
   std::size_t propagations = 0;    ///< inverse FFTs used (coarse + refinement)
 };
+
+/// Noise-split block side for a field whose spectrum is limited to radial
+/// frequencies <= band (cycles/m; the coherent cut-off NA/λ0 of the
+/// microscope; 0 or more than the grid's Nyquist frequency: the grid's
+/// Nyquist frequency): the first zero of the field's amplitude correlation,
+/// 0.61/band (the jinc of a disc-shaped band, the coherent Airy radius
+/// 0.61·λ0/NA [common practice]), in pixels of the finer axis, rounded up,
+/// at least 2. 0.25 µm pitch at NA 0.75, 632.8 nm: 3; 0.345 µm: 2.
+std::size_t split_block_for(const Grid& grid, double band);
 
 class Search {
 public:
