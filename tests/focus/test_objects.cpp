@@ -63,6 +63,37 @@ TEST_CASE("two objects at different depths in one frame are each found and focus
   CHECK(t.objects.size() == 2);
 }
 
+TEST_CASE("the frame's own focus is scored over frame_roi only") {
+  // The two discs of the test above, sharp at -8 µm (left) and +6 µm
+  // (right); frame_roi covers the left half, so the frame's focus is the
+  // left disc's, within DOF/10 [common practice], while both objects are
+  // still found. A region outside the frame is a configuration error.
+  const std::size_t n = 160;
+  Object a{Object::mixed_disc};
+  a.absorb = 0.3;
+  a.phase = 1.0;
+  a.focus = -8e-6;
+  a.cx = -10e-6;
+  Object b{Object::phase_disc};
+  b.phase = 1.0;
+  b.focus = 6e-6;
+  b.cx = 10e-6;
+  ObjectOptions oo;
+  oo.search.band = band;
+  oo.frame_roi = Roi{10, 4, 140, 74}; // columns 4..78: the left disc (pixel 40)
+  ObjectFocuser of(n, n, grid(), -20e-6, 20e-6, 0.5e-6, oo);
+  auto ws = of.make_workspace();
+  ObjectTable t;
+  of.run(make_frame(n, n, {a, b}, 0.02, 22), t, ws);
+  INFO("frame focus " << t.frame.distance * 1e6 << " um (" << to_string(t.frame.reason) << ")");
+  REQUIRE(t.frame.sure);
+  CHECK(std::abs(t.frame.distance - a.focus) <= tolerance);
+  CHECK(t.objects.size() == 2);
+  ObjectOptions outside;
+  outside.frame_roi = Roi{100, 100, 80, 20};
+  CHECK_THROWS_AS(ObjectFocuser(n, n, grid(), -20e-6, 20e-6, 0.5e-6, outside), Error);
+}
+
 TEST_CASE("a frame without objects gives an unsure frame focus and no confident object") {
   const std::size_t n = 128;
   ObjectOptions quiet;

@@ -58,6 +58,9 @@ ObjectFocuser::ObjectFocuser(std::size_t h, std::size_t w, const Grid& grid, dou
   if (!(options.threshold > 0)) fail_config("object focus: threshold must be positive");
   if (!(options.min_contrast >= 0 && options.min_contrast < 1)) fail_config("object focus: min_contrast must be in [0, 1)");
   if (!(options.smooth_px >= 0 && std::isfinite(options.smooth_px))) fail_config("object focus: smooth_px must be >= 0");
+  if (!options.frame_roi.whole() &&
+      (options.frame_roi.y + options.frame_roi.height > h || options.frame_roi.x + options.frame_roi.width > w))
+    fail_config("object focus: frame_roi must lie inside the frame");
   if (options.min_area == 0 || options.max_objects == 0)
     fail_config("object focus: min_area and max_objects must be at least 1");
   impl_ = std::make_unique<Impl>(h, w, grid, from, to, step, options_);
@@ -184,7 +187,20 @@ void ObjectFocuser::run(ImageView<const cfloat> field, ObjectTable& out, Workspa
   // 2. The whole frame.
   out.frame.distances.assign(e.distances.begin(), e.distances.end());
   out.frame.curve.resize(s);
-  focus_box(0, m.tiles_y, 0, m.tiles_x, Roi{}, out.frame.curve, &out.frame, nullptr);
+  {
+    const Roi& fr = options_.frame_roi;
+    const std::size_t t = m.tile;
+    std::size_t ty0 = 0, ty1 = m.tiles_y, tx0 = 0, tx1 = m.tiles_x;
+    Roi box{};
+    if (!fr.whole()) { // whole tiles inside the region
+      ty0 = std::min(m.tiles_y - 1, (fr.y + t - 1) / t);
+      tx0 = std::min(m.tiles_x - 1, (fr.x + t - 1) / t);
+      ty1 = std::max(ty0 + 1, std::min(m.tiles_y, (fr.y + fr.height) / t)); // at least one tile
+      tx1 = std::max(tx0 + 1, std::min(m.tiles_x, (fr.x + fr.width) / t));
+      box = Roi{ty0 * t, tx0 * t, std::min(h, ty1 * t) - ty0 * t, std::min(w, tx1 * t) - tx0 * t};
+    }
+    focus_box(ty0, ty1, tx0, tx1, box, out.frame.curve, &out.frame, nullptr);
+  }
 
   // 3. Segmentation of the map.
   const int hi = static_cast<int>(h), wi = static_cast<int>(w);

@@ -83,7 +83,7 @@ public:
     // Harris 1978), and by default only inside the untapered centre.
     window_y_ = fringe::tukey_window(h_, 2 * taper_);
     window_x_ = fringe::tukey_window(w_, 2 * taper_);
-    if (opt_.roi.whole() && !objects_) {
+    if (opt_.roi.whole()) {
       // Keep out of the score what the border sends inwards over the sweep:
       // the taper plus the lateral spread |z|max·tanθ of the steepest wave
       // (sinθ = NA/n when the NA is known, else the grid's Nyquist angle).
@@ -116,6 +116,8 @@ public:
     if (objects_) {
       focus::ObjectOptions oo;
       oo.search = opt_;
+      oo.frame_roi = opt_.roi; // the frame's own focus, away from the border
+      oo.search.roi = {};      // objects are found and boxed over the whole frame
       objects_focuser_ = std::make_unique<focus::ObjectFocuser>(h_, w_, in.grid, from_, to_, step_, oo);
       distances_.assign(objects_focuser_->distances().begin(), objects_focuser_->distances().end());
     } else {

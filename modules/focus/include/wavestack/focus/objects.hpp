@@ -19,7 +19,8 @@
 //     sum of its tiles' moments, judged as in search.hpp (the same
 //     checkerboard split, summed over the box's tiles), and refined with 2·refine_levels extra inverse
 //     FFTs of the whole frame, evaluating the metric on the box only;
-//  3. the frame as a whole gets the same treatment (FocusResult `frame`).
+//  3. the frame as a whole (options.frame_roi) gets the same treatment
+//     (FocusResult `frame`).
 // Cost: (S + 2·L·(objects + 1)) inverse FFTs per frame; memory S·tiles·48
 // bytes for the tile moments (81 planes, 512x512, 8 px tiles: 16 MB).
 //
@@ -56,6 +57,12 @@ struct ObjectOptions {
   std::size_t margin = 8;
   /// At most this many objects, the largest kept (default 64). >= 1.
   std::size_t max_objects = 64;
+  /// Region scored for the frame as a whole (`frame` of ObjectTable);
+  /// default the whole frame. Shrunk inward to whole tiles (at least one);
+  /// Error(config) when it does not lie inside the frame. The
+  /// pipeline leaves the frame border and what it spreads over the sweep
+  /// out, as for a plain search.
+  Roi frame_roi = {};
   /// Side (pixels) of the tiles the moments are kept on; boxes are whole
   /// tiles (default 8). Independent of the noise split's block side
   /// (search.split_tile), which may be smaller. >= 1.
