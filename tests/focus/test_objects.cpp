@@ -7,18 +7,16 @@
 #include <catch2/catch.hpp>
 
 #include <cmath>
+#include <utility>
 
 using namespace wavestack;
 using namespace wavestack::focus;
 using namespace focus_test;
 
-TEST_CASE("two objects at different depths in one frame are each found and focused") {
-  // A mixed disc sharp at -8 µm and a phase disc sharp at +6 µm, 20 µm apart
-  // laterally in a 160x160 frame (pupil-limited noise σ = 0.02). Both must
-  // be segmented (centroid within 2 pixels of the disc centre: the segment is
-  // the smoothed max-projection of |∇U|², symmetric about the disc) and
-  // focused within DOF/10 (Inoué & Spring [common practice]).
-  const std::size_t n = 160;
+namespace {
+/// A mixed disc sharp at -8 µm (upper left) and a phase disc sharp at +6 µm
+/// (lower right), 20 µm apart laterally.
+std::pair<Object, Object> two_discs() {
   Object a{Object::mixed_disc};
   a.absorb = 0.3;
   a.phase = 1.0;
@@ -30,6 +28,18 @@ TEST_CASE("two objects at different depths in one frame are each found and focus
   b.focus = 6e-6;
   b.cy = 5e-6;
   b.cx = 10e-6;
+  return {a, b};
+}
+} // namespace
+
+TEST_CASE("two objects at different depths in one frame are each found and focused") {
+  // A mixed disc sharp at -8 µm and a phase disc sharp at +6 µm, 20 µm apart
+  // laterally in a 160x160 frame (pupil-limited noise σ = 0.02). Both must
+  // be segmented (centroid within 2 pixels of the disc centre: the segment is
+  // the smoothed max-projection of |∇U|², symmetric about the disc) and
+  // focused within DOF/10 (Inoué & Spring [common practice]).
+  const std::size_t n = 160;
+  const auto [a, b] = two_discs();
   const Image<cfloat> f = make_frame(n, n, {a, b}, 0.02, 21);
   ObjectFocuser of(n, n, grid(), -20e-6, 20e-6, 0.5e-6);
   auto ws = of.make_workspace();
@@ -69,15 +79,7 @@ TEST_CASE("the frame's own focus is scored over frame_roi only") {
   // left disc's, within DOF/10 [common practice], while both objects are
   // still found. A region outside the frame is a configuration error.
   const std::size_t n = 160;
-  Object a{Object::mixed_disc};
-  a.absorb = 0.3;
-  a.phase = 1.0;
-  a.focus = -8e-6;
-  a.cx = -10e-6;
-  Object b{Object::phase_disc};
-  b.phase = 1.0;
-  b.focus = 6e-6;
-  b.cx = 10e-6;
+  const auto [a, b] = two_discs();
   ObjectOptions oo;
   oo.search.band = band;
   oo.frame_roi = Roi{10, 4, 140, 74}; // columns 4..78: the left disc (pixel 40)
