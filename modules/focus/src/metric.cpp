@@ -228,11 +228,11 @@ namespace avx512 {
 template <bool Masked> __attribute__((target("avx512f"))) inline __m512 load16(__mmask16 m, const float* x) {
   return Masked ? _mm512_maskz_loadu_ps(m, x) : _mm512_loadu_ps(x);
 }
+/// Lane j of the result is pixel j, or with other `even`/`odd` tables the
+/// pixel whose real and imaginary parts they pick (a free reordering).
 template <bool Grad, bool Masked>
 __attribute__((target("avx512f"))) inline __m512 quantity16(const float* p, const float* q, __m512 b, __mmask16 m0,
-                                                           __mmask16 m1) {
-  const __m512i even = _mm512_set_epi32(30, 28, 26, 24, 22, 20, 18, 16, 14, 12, 10, 8, 6, 4, 2, 0);
-  const __m512i odd = _mm512_set_epi32(31, 29, 27, 25, 23, 21, 19, 17, 15, 13, 11, 9, 7, 5, 3, 1);
+                                                           __mmask16 m1, __m512i even, __m512i odd) {
   __m512 s0, s1; // per-component squares of 8 + 8 pixels
   const __m512 p0 = load16<Masked>(m0, p), p1 = load16<Masked>(m1, p + 16);
   if constexpr (Grad) {
@@ -308,23 +308,22 @@ __attribute__((target("avx512f"))) void split_sums(const float* r0, const float*
   constexpr bool halves = Mode != SplitMode::masked;
   const __m512 b = _mm512_set_ps(bi, br, bi, br, bi, br, bi, br, bi, br, bi, br, bi, br, bi, br);
   const __m512d z = _mm512_setzero_pd();
-  __m512i idx = _mm512_setzero_si512();
-  if constexpr (Mode == SplitMode::permuted) idx = _mm512_loadu_si512(order->lane);
-  auto arrange = [&](__m512 v) {
-    if constexpr (Mode == SplitMode::permuted) return _mm512_permutexvar_ps(idx, v);
-    else return v;
-  };
+  // Real and imaginary parts of pixel j in lanes 2j and 2j+1 of a group;
+  // permuted: of pixel order->lane[j], so the even-block pixels come first.
+  __m512i even = _mm512_set_epi32(30, 28, 26, 24, 22, 20, 18, 16, 14, 12, 10, 8, 6, 4, 2, 0);
+  if constexpr (Mode == SplitMode::permuted) even = _mm512_slli_epi32(_mm512_loadu_si512(order->lane), 1);
+  const __m512i odd = _mm512_add_epi32(even, _mm512_set1_epi32(1));
   SplitAcc r{z, z, z, z, z, z, z, z};
   std::size_t i = 0;
   for (; i + 16 <= n; i += 16)
-    add16<halves>(r, arrange(quantity16<Grad, false>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, 0, 0)), 0xFF, 0xFF,
-                  halves ? 0 : set_pixels(m + i, 0xFFFF));
+    add16<halves>(r, quantity16<Grad, false>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, 0, 0, even, odd), 0xFF,
+                  0xFF, halves ? 0 : set_pixels(m + i, 0xFFFF));
   if (i < n) {
     const std::size_t c = n - i, c0 = std::min<std::size_t>(c, 8), c1 = c - c0; // pixels left, per half
     __mmask16 valid = static_cast<__mmask16>((1u << c) - 1);
     const __mmask16 m0 = static_cast<__mmask16>((1u << (2 * c0)) - 1);
     const __mmask16 m1 = static_cast<__mmask16>((1u << (2 * c1)) - 1);
-    const __m512 v = arrange(quantity16<Grad, true>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, m0, m1));
+    const __m512 v = quantity16<Grad, true>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, m0, m1, even, odd);
     if constexpr (Mode == SplitMode::permuted) { // lane j holds source lane order->lane[j]
       __mmask16 moved = 0;
       for (int j = 0; j < 16; ++j)
