@@ -298,8 +298,10 @@ struct LaneOrder {
 /// is masked). Mode masked: m is read. Mode aligned: the mask is known to
 /// be 1 on pixels 0..7 and 0 on 8..15 of every 16 (tile 8 from pixel 0), so
 /// the two halves go to their own sums and m is not read. Mode permuted:
-/// the same after reordering each group's lanes by `order` (blocks of 1,
-/// 2, 4 or 8 at any phase). Squares are accumulated with FMA.
+/// the same with each group's pixels taken in the order `order` (blocks of
+/// 1, 2, 4 or 8 at any phase), at no cost: the order is folded into the
+/// shuffle that separates real and imaginary parts. Squares are
+/// accumulated with FMA.
 enum class SplitMode { masked, aligned, permuted };
 template <bool Grad, SplitMode Mode>
 __attribute__((target("avx512f"))) void split_sums(const float* r0, const float* r1, float br, float bi,
