@@ -293,9 +293,12 @@ struct LaneOrder {
   int lane[16];
 };
 
-/// out += {Σq, Σq², Σmq, Σmq²} over pixels [0, n) of the row at r0 (next
-/// row r1 for Grad), m the 0/1 mask (the last group of fewer than 16 pixels
-/// is masked). Mode masked: m is read. Mode aligned: the mask is known to
+/// out[k] = {Σq, Σq², Σmq, Σmq²} over pixels [xa, xa+n) of the rows y in
+/// [ya, yb) with block-row parity ((y - y_origin)/tile) % 2 == k (rows[k]
+/// of them; the next row too for Grad), m the 0/1 mask of the columns (the
+/// last group of fewer than 16 pixels is masked). The sums stay in vector
+/// registers over all rows: a per-row reduction cost as much as 90 pixels
+/// of a 512-pixel row (measured). Mode masked: m is read. Mode aligned: the mask is known to
 /// be 1 on pixels 0..7 and 0 on 8..15 of every 16 (tile 8 from pixel 0), so
 /// the two halves go to their own sums and m is not read. Mode permuted:
 /// the same with each group's pixels taken in the order `order` (blocks of
@@ -304,9 +307,11 @@ struct LaneOrder {
 /// accumulated with FMA.
 enum class SplitMode { masked, aligned, permuted };
 template <bool Grad, SplitMode Mode>
-__attribute__((target("avx512f"))) void split_sums(const float* r0, const float* r1, float br, float bi,
-                                                  const float* m, std::size_t n, double* out,
-                                                  const LaneOrder* order = nullptr) {
+__attribute__((target("avx512f"))) void split_sums(ImageView<const cfloat> u, std::size_t ya, std::size_t yb,
+                                                  std::size_t xa, std::size_t n, std::size_t y_origin,
+                                                  std::size_t tile, float br, float bi, const float* m,
+                                                  const LaneOrder* order, double (&out)[2][4],
+                                                  std::size_t (&rows)[2]) {
   constexpr bool halves = Mode != SplitMode::masked;
   const __m512 b = _mm512_set_ps(bi, br, bi, br, bi, br, bi, br, bi, br, bi, br, bi, br, bi, br);
   const __m512d z = _mm512_setzero_pd();
@@ -315,34 +320,45 @@ __attribute__((target("avx512f"))) void split_sums(const float* r0, const float*
   __m512i even = _mm512_set_epi32(30, 28, 26, 24, 22, 20, 18, 16, 14, 12, 10, 8, 6, 4, 2, 0);
   if constexpr (Mode == SplitMode::permuted) even = _mm512_slli_epi32(_mm512_loadu_si512(order->lane), 1);
   const __m512i odd = _mm512_add_epi32(even, _mm512_set1_epi32(1));
-  SplitAcc r{z, z, z, z, z, z, z, z};
-  std::size_t i = 0;
-  for (; i + 16 <= n; i += 16)
-    add16<halves>(r, quantity16<Grad, false>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, 0, 0, even, odd), 0xFF,
-                  0xFF, halves ? 0 : set_pixels(m + i, 0xFFFF));
-  if (i < n) {
-    const std::size_t c = n - i, c0 = std::min<std::size_t>(c, 8), c1 = c - c0; // pixels left, per half
-    __mmask16 valid = static_cast<__mmask16>((1u << c) - 1);
-    const __mmask16 m0 = static_cast<__mmask16>((1u << (2 * c0)) - 1);
-    const __mmask16 m1 = static_cast<__mmask16>((1u << (2 * c1)) - 1);
-    const __m512 v = quantity16<Grad, true>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, m0, m1, even, odd);
-    if constexpr (Mode == SplitMode::permuted) { // lane j holds source lane order->lane[j]
-      __mmask16 moved = 0;
-      for (int j = 0; j < 16; ++j)
-        if (valid >> order->lane[j] & 1u) moved = static_cast<__mmask16>(moved | (1u << j));
-      valid = moved;
+  // The last group of fewer than 16 pixels (the same in every row).
+  const std::size_t full = n / 16 * 16, c = n - full, c0 = std::min<std::size_t>(c, 8), c1 = c - c0;
+  const __mmask16 m0 = static_cast<__mmask16>((1u << (2 * c0)) - 1);
+  const __mmask16 m1 = static_cast<__mmask16>((1u << (2 * c1)) - 1);
+  const __mmask16 valid = static_cast<__mmask16>((1u << c) - 1);
+  __mmask16 lanes = valid; // the valid lanes after the reordering
+  if constexpr (Mode == SplitMode::permuted) {
+    lanes = 0;
+    for (int j = 0; j < 16; ++j)
+      if (valid >> order->lane[j] & 1u) lanes = static_cast<__mmask16>(lanes | (1u << j));
+  }
+  const __mmask16 tail_set = halves || c == 0 ? 0 : set_pixels(m + full, valid);
+  // Sums over all rows of each block-row parity, reduced once at the end.
+  SplitAcc r[2] = {{z, z, z, z, z, z, z, z}, {z, z, z, z, z, z, z, z}};
+  rows[0] = rows[1] = 0;
+  for (std::size_t y = ya; y < yb; ++y) {
+    const std::size_t par = ((y - y_origin) / tile) % 2;
+    ++rows[par];
+    SplitAcc& acc = r[par];
+    const float* r0 = reinterpret_cast<const float*>(u.row(y) + xa);
+    const float* r1 = Grad ? reinterpret_cast<const float*>(u.row(y + 1) + xa) : nullptr;
+    for (std::size_t i = 0; i < full; i += 16)
+      add16<halves>(acc, quantity16<Grad, false>(r0 + 2 * i, Grad ? r1 + 2 * i : nullptr, b, 0, 0, even, odd), 0xFF,
+                    0xFF, halves ? 0 : set_pixels(m + i, 0xFFFF));
+    if (c > 0)
+      add16<halves>(acc, quantity16<Grad, true>(r0 + 2 * full, Grad ? r1 + 2 * full : nullptr, b, m0, m1, even, odd),
+                    static_cast<__mmask8>(lanes), static_cast<__mmask8>(lanes >> 8), tail_set);
+  }
+  for (int k = 0; k < 2; ++k) {
+    SplitAcc& acc = r[k];
+    if constexpr (halves) { // all = even half + odd half
+      acc.s1a = acc.t1a;
+      acc.s2a = acc.t2a;
     }
-    add16<halves>(r, v, static_cast<__mmask8>(valid), static_cast<__mmask8>(valid >> 8),
-                  halves ? 0 : set_pixels(m + i, valid));
+    out[k][0] = _mm512_reduce_add_pd(_mm512_add_pd(acc.s1a, acc.s1b));
+    out[k][1] = _mm512_reduce_add_pd(_mm512_add_pd(acc.s2a, acc.s2b));
+    out[k][2] = _mm512_reduce_add_pd(_mm512_add_pd(acc.t1a, acc.t1b));
+    out[k][3] = _mm512_reduce_add_pd(_mm512_add_pd(acc.t2a, acc.t2b));
   }
-  if constexpr (halves) { // all = even half + odd half
-    r.s1a = r.t1a;
-    r.s2a = r.t2a;
-  }
-  out[0] += _mm512_reduce_add_pd(_mm512_add_pd(r.s1a, r.s1b));
-  out[1] += _mm512_reduce_add_pd(_mm512_add_pd(r.s2a, r.s2b));
-  out[2] += _mm512_reduce_add_pd(_mm512_add_pd(r.t1a, r.t1b));
-  out[3] += _mm512_reduce_add_pd(_mm512_add_pd(r.t2a, r.t2b));
 }
 
 bool available() {
@@ -690,25 +706,37 @@ void MetricEvaluator::accumulate_split(ImageView<const cfloat> u, cfloat backgro
         if ((mask[j] != 0.0f) == (even == 1)) order.lane[k++] = j;
   }
 #endif
+#if defined(WAVESTACK_FOCUS_AVX2)
+  if (fused) {
+    using avx512::SplitMode;
+    double out[2][4];
+    std::size_t rows[2];
+    const float br = background.real(), bi = background.imag();
+    const std::size_t t = tile, y0 = roi_.y;
+    if (grad)
+      aligned    ? avx512::split_sums<true, SplitMode::aligned>(u, ya, yb, xa, n, y0, t, br, bi, mask, nullptr, out, rows)
+      : periodic ? avx512::split_sums<true, SplitMode::permuted>(u, ya, yb, xa, n, y0, t, br, bi, mask, &order, out, rows)
+                 : avx512::split_sums<true, SplitMode::masked>(u, ya, yb, xa, n, y0, t, br, bi, mask, nullptr, out, rows);
+    else
+      aligned    ? avx512::split_sums<false, SplitMode::aligned>(u, ya, yb, xa, n, y0, t, br, bi, mask, nullptr, out, rows)
+      : periodic ? avx512::split_sums<false, SplitMode::permuted>(u, ya, yb, xa, n, y0, t, br, bi, mask, &order, out, rows)
+                 : avx512::split_sums<false, SplitMode::masked>(u, ya, yb, xa, n, y0, t, br, bi, mask, nullptr, out, rows);
+    // Even block-rows: even block-columns go to a; odd block-rows swap.
+    for (int k = 0; k < 2; ++k) {
+      const double r = static_cast<double>(rows[k]);
+      const Moments even{ne * r, out[k][2], out[k][3]},
+          odd{(static_cast<double>(n) - ne) * r, out[k][0] - out[k][2], out[k][1] - out[k][3]};
+      (k ? b : a) += even;
+      (k ? a : b) += odd;
+    }
+    return;
+  }
+#endif
   for (std::size_t y = ya; y < yb; ++y) {
     double acc[4] = {0, 0, 0, 0}; // all, all², even blocks, even blocks²
     std::size_t done = 0; // pixels summed
 #if defined(WAVESTACK_FOCUS_AVX2)
-    if (fused) {
-      using avx512::SplitMode;
-      const float* r0 = reinterpret_cast<const float*>(u.row(y) + xa);
-      const float* r1 = grad ? reinterpret_cast<const float*>(u.row(y + 1) + xa) : nullptr;
-      const float br = background.real(), bi = background.imag();
-      if (grad)
-        aligned    ? avx512::split_sums<true, SplitMode::aligned>(r0, r1, br, bi, mask, n, acc)
-        : periodic ? avx512::split_sums<true, SplitMode::permuted>(r0, r1, br, bi, mask, n, acc, &order)
-                   : avx512::split_sums<true, SplitMode::masked>(r0, r1, br, bi, mask, n, acc);
-      else
-        aligned    ? avx512::split_sums<false, SplitMode::aligned>(r0, r1, br, bi, mask, n, acc)
-        : periodic ? avx512::split_sums<false, SplitMode::permuted>(r0, r1, br, bi, mask, n, acc, &order)
-                   : avx512::split_sums<false, SplitMode::masked>(r0, r1, br, bi, mask, n, acc);
-      done = n;
-    } else if (aligned && fused_metric(metric_) && avx2::available()) {
+    if (aligned && fused_metric(metric_) && avx2::available()) {
       done = avx2::aligned_split_sums(grad, reinterpret_cast<const float*>(u.row(y) + xa),
                                       grad ? reinterpret_cast<const float*>(u.row(y + 1) + xa) : nullptr,
                                       background.real(), background.imag(), n, acc);
