@@ -27,15 +27,6 @@ constexpr const char* index_name = "/frames/index";
 constexpr const char* done_name = "/frames/done";
 constexpr const char* focus_name = "/focus/distance";
 
-std::string iso8601_utc_now() {
-  const std::time_t t = std::time(nullptr);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  char buf[32];
-  std::strftime(buf, sizeof buf, "%Y-%m-%dT%H:%M:%SZ", &tm);
-  return buf;
-}
-
 /// compound {r: f32, i: f32} of 8 bytes: the layout of std::complex<float>
 /// (array-compatible by [complex.numbers]) and the names h5py maps to complex64.
 Hid make_complex_type(hid_t member) {

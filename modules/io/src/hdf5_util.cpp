@@ -5,6 +5,7 @@
 #include <charconv>
 #include <cstdlib>
 #include <cstring>
+#include <ctime>
 
 namespace wavestack::io {
 
@@ -449,6 +450,15 @@ std::string absolute_path(const std::string& dataset) {
   if (p.empty() || p[0] != '/') p.insert(p.begin(), '/');
   while (p.size() > 1 && p.back() == '/') p.pop_back();
   return p;
+}
+
+std::string iso8601_utc_now() {
+  const std::time_t t = std::time(nullptr);
+  std::tm tm{};
+  gmtime_r(&t, &tm);
+  char buf[32];
+  std::strftime(buf, sizeof buf, "%Y-%m-%dT%H:%M:%SZ", &tm);
+  return buf;
 }
 
 } // namespace detail

@@ -151,4 +151,8 @@ std::string absolute_path(const std::string& dataset);
 /// Shortest round-trip text of a double ("0.5", "6.328e-07").
 std::string format_double(double v);
 
+/// The current time in UTC as ISO 8601, e.g. "2026-12-02T03:47:00Z" (the
+/// `created` attribute).
+std::string iso8601_utc_now();
+
 } // namespace wavestack::io::detail

@@ -125,15 +125,6 @@ void copy_attributes(hid_t from, hid_t to, const std::vector<std::string>& skip,
   }
 }
 
-std::string now_utc() {
-  const std::time_t t = std::time(nullptr);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  char buf[32];
-  std::strftime(buf, sizeof buf, "%Y-%m-%dT%H:%M:%SZ", &tm);
-  return buf;
-}
-
 /// Where the merged file finds a shard: relative to its own folder when the
 /// shard is inside it (the pair can then be moved together), else absolute.
 std::string source_name(const std::string& shard, const std::string& output) {
@@ -268,7 +259,7 @@ MergeReport merge_shards(const std::vector<std::string>& paths, const std::strin
     copy_attributes(from_root.get(), to_root.get(), {"created", "frames_selected", "warnings", "pipeline"},
                     where(first.path, "/"));
   }
-  write_attribute(out.get(), "created", now_utc(), ErrorKind::output, oc);
+  write_attribute(out.get(), "created", iso8601_utc_now(), ErrorKind::output, oc);
   write_attribute(out.get(), "pipeline", replace_output_path(first.pipeline, "path = " + toml_string(output)),
                   ErrorKind::output, oc);
   std::string sel = std::to_string(r.first) + ":" + std::to_string(r.last + 1);
