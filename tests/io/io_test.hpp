@@ -8,6 +8,7 @@
 #include <fstream>
 #include <iostream>
 #include <sstream>
+#include <stdexcept>
 #include <string>
 
 #include <sys/wait.h>
@@ -52,6 +53,15 @@ inline int run_python(const std::string& script, const std::string& args) {
   std::error_code ec;
   std::filesystem::remove(log, ec);
   return status;
+}
+
+/// The input files of make_inputs.py, written once per test process into
+/// one folder (shared by the frame-source tests). Throws when the script fails.
+inline const TempDir& generated_inputs() {
+  static TempDir dir("inputs");
+  static const int status = run_python("make_inputs.py", quoted(dir.path.string()));
+  if (status != 0) throw std::runtime_error("tests/io/make_inputs.py failed (output above)");
+  return dir;
 }
 
 } // namespace io_test

@@ -15,13 +15,8 @@ using namespace wavestack::io;
 
 namespace {
 
-/// The inputs, written once per test run.
-const io_test::TempDir& inputs() {
-  static io_test::TempDir dir("inputs");
-  static const int status = io_test::run_python("make_inputs.py", io_test::quoted(dir.path.string()));
-  REQUIRE(status == 0);
-  return dir;
-}
+/// The inputs of make_inputs.py, written once per test process.
+const io_test::TempDir& inputs() { return io_test::generated_inputs(); }
 
 /// v(f, y, x) of make_inputs.py.
 double pattern(std::size_t f, std::size_t y, std::size_t x) {

@@ -20,12 +20,8 @@ using namespace wavestack::io;
 
 namespace {
 
-const io_test::TempDir& inputs() {
-  static io_test::TempDir dir("image_inputs");
-  static const int status = io_test::run_python("make_inputs.py", io_test::quoted(dir.path.string()));
-  REQUIRE(status == 0);
-  return dir;
-}
+/// The inputs of make_inputs.py, written once per test process.
+const io_test::TempDir& inputs() { return io_test::generated_inputs(); }
 
 std::vector<std::byte> file_bytes(const std::string& path) {
   std::ifstream in(path, std::ios::binary);
