@@ -147,7 +147,7 @@ int main(int argc, char** argv) {
     const std::size_t ph = prop->padded_height(), pw = prop->padded_width();
     auto r2c = fft::plan_r2c(size, size);
     auto crop_inv = fft::plan_c2c(crop.height, crop.width, fft::Direction::backward, true);
-    auto pad_fwd = fft::plan_c2c(ph, pw, fft::Direction::forward, false);
+    auto pad_fwd = fft::plan_padded_c2c(ph, pw, crop.height, fft::Direction::forward); // the propagator's own
     auto pad_inv = fft::plan_c2c(ph, pw, fft::Direction::backward, true);
     struct Buffers {
       Image<float> holo;

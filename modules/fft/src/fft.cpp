@@ -4,6 +4,9 @@
 #include "wavestack/core/log.hpp"
 
 #include <fftw3.h>
+#include <tbb/blocked_range.h>
+#include <tbb/parallel_for.h>
+#include <tbb/task_arena.h>
 
 #include <cstdint>
 #include <cstdio>
@@ -22,9 +25,10 @@ static_assert(image_alignment % 64 == 0, "Image storage must satisfy FFTW's stri
 
 namespace {
 
-enum class Kind { c2c, r2c };
+enum class Kind { c2c, r2c, padded };
 
-using Key = std::tuple<Kind, std::size_t, std::size_t, Direction, bool, Planning>;
+/// Kind, h, w, direction, in place, planning, data rows (padded only).
+using Key = std::tuple<Kind, std::size_t, std::size_t, Direction, bool, Planning, std::size_t>;
 
 unsigned fftw_flags(Planning p) {
   switch (p) {
@@ -106,6 +110,52 @@ private:
   fftwf_plan plan_;
 };
 
+/// Row pass: FFTW plans of `block` and of the last, shorter block of rows
+/// (out of place, input preserved); column pass: the same for columns (in
+/// place on the output). Block offsets are multiples of 32 complex values
+/// (256 bytes), so every block has the planning arrays' alignment.
+class PaddedPlan final : public PaddedC2C {
+public:
+  PaddedPlan(std::size_t h, std::size_t w, std::size_t rows, Direction d, fftwf_plan row_full, fftwf_plan row_last,
+             fftwf_plan col_full, fftwf_plan col_last)
+      : PaddedC2C(h, w, rows, d), row_full_(row_full), row_last_(row_last), col_full_(col_full),
+        col_last_(col_last) {}
+  void execute(const cfloat* in, cfloat* out) const override {
+    if (!is_aligned(in) || !is_aligned(out))
+      fail_internal("FFT arrays must be 64-byte aligned (use wavestack::Image storage)");
+    if (overlaps(in, rows_ * w_ * sizeof(cfloat), out, h_ * w_ * sizeof(cfloat)))
+      fail_internal("a padded FFT plan needs non-overlapping input and output arrays");
+    // const_cast: the row plans are made with FFTW_PRESERVE_INPUT.
+    auto* i = reinterpret_cast<fftwf_complex*>(const_cast<cfloat*>(in));
+    auto* o = reinterpret_cast<fftwf_complex*>(out);
+    const std::size_t row_blocks = (rows_ + block - 1) / block, col_blocks = (w_ + block - 1) / block;
+    tbb::this_task_arena::isolate([&] {
+      tbb::parallel_for(tbb::blocked_range<std::size_t>(0, row_blocks + 1, 1),
+                        [&](const tbb::blocked_range<std::size_t>& r) {
+                          for (std::size_t b = r.begin(); b != r.end(); ++b) {
+                            if (b == row_blocks) { // the padding rows of the output
+                              if (rows_ < h_) std::memset(static_cast<void*>(o + rows_ * w_), 0,
+                                                          (h_ - rows_) * w_ * sizeof(fftwf_complex));
+                              continue;
+                            }
+                            const std::size_t at = b * block * w_;
+                            fftwf_execute_dft(b + 1 == row_blocks ? row_last_ : row_full_, i + at, o + at);
+                          }
+                        });
+      tbb::parallel_for(tbb::blocked_range<std::size_t>(0, col_blocks, 1),
+                        [&](const tbb::blocked_range<std::size_t>& r) {
+                          for (std::size_t b = r.begin(); b != r.end(); ++b) {
+                            const std::size_t at = b * block;
+                            fftwf_execute_dft(b + 1 == col_blocks ? col_last_ : col_full_, o + at, o + at);
+                          }
+                        });
+    });
+  }
+
+private:
+  fftwf_plan row_full_, row_last_, col_full_, col_last_; // never destroyed
+};
+
 /// The process-wide plan cache. Deliberately never destroyed, so plans stay
 /// valid for any code that runs during static destruction.
 struct Cache {
@@ -113,6 +163,7 @@ struct Cache {
   Planning planning = Planning::estimate;
   std::map<Key, std::shared_ptr<const C2C>> c2c;
   std::map<Key, std::shared_ptr<const R2C>> r2c;
+  std::map<Key, std::shared_ptr<const PaddedC2C>> padded;
 
   Cache() {
     // Belt and braces: we already serialise planning, but this makes FFTW's
@@ -132,7 +183,7 @@ std::shared_ptr<const C2C> plan_c2c(std::size_t h, std::size_t w, Direction dir,
   const int ih = as_int(h, "height"), iw = as_int(w, "width");
   Cache& c = cache();
   std::lock_guard lock(c.mutex);
-  const Key key{Kind::c2c, h, w, dir, in_place, c.planning};
+  const Key key{Kind::c2c, h, w, dir, in_place, c.planning, 0};
   if (auto it = c.c2c.find(key); it != c.c2c.end()) return it->second;
 
   const std::size_t bytes = h * w * sizeof(fftwf_complex);
@@ -159,7 +210,7 @@ std::shared_ptr<const R2C> plan_r2c(std::size_t h, std::size_t w) {
   const int ih = as_int(h, "height"), iw = as_int(w, "width");
   Cache& c = cache();
   std::lock_guard lock(c.mutex);
-  const Key key{Kind::r2c, h, w, Direction::forward, false, c.planning};
+  const Key key{Kind::r2c, h, w, Direction::forward, false, c.planning, 0};
   if (auto it = c.r2c.find(key); it != c.r2c.end()) return it->second;
 
   Scratch a(h * w * sizeof(float));
@@ -173,6 +224,43 @@ std::shared_ptr<const R2C> plan_r2c(std::size_t h, std::size_t w) {
              planning_name(c.planning) + ")");
   auto plan = std::make_shared<const R2CPlan>(h, w, p);
   c.r2c.emplace(key, plan);
+  return plan;
+}
+
+std::shared_ptr<const PaddedC2C> plan_padded_c2c(std::size_t h, std::size_t w, std::size_t rows, Direction dir) {
+  const int ih = as_int(h, "height"), iw = as_int(w, "width");
+  if (rows == 0 || rows > h)
+    fail_internal("padded FFT of height " + std::to_string(h) + " with " + std::to_string(rows) + " data rows");
+  Cache& c = cache();
+  std::lock_guard lock(c.mutex);
+  const Key key{Kind::padded, h, w, dir, false, c.planning, rows};
+  if (auto it = c.padded.find(key); it != c.padded.end()) return it->second;
+
+  Scratch a(h * w * sizeof(fftwf_complex)), b(h * w * sizeof(fftwf_complex));
+  auto* in = static_cast<fftwf_complex*>(a.p);
+  auto* out = static_cast<fftwf_complex*>(b.p);
+  const int sign = dir == Direction::forward ? FFTW_FORWARD : FFTW_BACKWARD;
+  const unsigned flags = fftw_flags(c.planning);
+  constexpr std::size_t bk = PaddedC2C::block;
+  auto lines = [&](std::size_t count, bool along_rows) {
+    const int howmany = static_cast<int>(count);
+    if (along_rows) // `count` rows of w values, rows w apart
+      return fftwf_plan_many_dft(1, &iw, howmany, in, nullptr, 1, iw, out, nullptr, 1, iw, sign,
+                                 flags | FFTW_PRESERVE_INPUT);
+    // `count` columns of h values, w apart, neighbouring columns 1 apart
+    return fftwf_plan_many_dft(1, &ih, howmany, out, nullptr, iw, 1, out, nullptr, iw, 1, sign, flags);
+  };
+  const std::size_t row_last = rows - (rows - 1) / bk * bk, col_last = w - (w - 1) / bk * bk;
+  fftwf_plan rf = lines(std::min(bk, rows), true), rl = lines(row_last, true);
+  fftwf_plan cf = lines(std::min(bk, w), false), cl = lines(col_last, false);
+  if (!rf || !rl || !cf || !cl)
+    fail_internal("FFTW could not plan the row and column passes of a " + std::to_string(h) + "x" +
+                  std::to_string(w) + " complex transform");
+  log::debug("fft: planned " + std::to_string(h) + "x" + std::to_string(w) + " complex " +
+             (dir == Direction::forward ? "forward" : "backward") + " of " + std::to_string(rows) +
+             " data rows, in blocks (" + planning_name(c.planning) + ")");
+  auto plan = std::make_shared<const PaddedPlan>(h, w, rows, dir, rf, rl, cf, cl);
+  c.padded.emplace(key, plan);
   return plan;
 }
 
@@ -229,7 +317,7 @@ bool is_aligned(const void* p) noexcept {
 std::size_t cached_plans() {
   Cache& c = cache();
   std::lock_guard lock(c.mutex);
-  return c.c2c.size() + c.r2c.size();
+  return c.c2c.size() + c.r2c.size() + c.padded.size();
 }
 
 namespace {

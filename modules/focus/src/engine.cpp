@@ -239,7 +239,7 @@ Engine::Engine(std::size_t h_, std::size_t w_, const Grid& grid_, double from, d
     offsets.push_back(propagate::cached_transfer(kind, ph, pw, grid, -hh, band_limit));
     offsets.push_back(propagate::cached_transfer(kind, ph, pw, grid, +hh, band_limit));
   }
-  fwd = fft::plan_c2c(ph, pw, fft::Direction::forward, false);
+  fwd = fft::plan_padded_c2c(ph, pw, h, fft::Direction::forward);
   inv = fft::plan_c2c(ph, pw, fft::Direction::backward, true);
 }
 

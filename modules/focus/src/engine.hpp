@@ -77,7 +77,8 @@ public:
   using Transfer = std::shared_ptr<const propagate::TransferFunction>;
   std::vector<Transfer> planes;  ///< from the shared cache (propagate::cached_transfer)
   std::vector<Transfer> offsets; ///< [2j] = -step/2^(j+1), [2j+1] = +step/2^(j+1)
-  std::shared_ptr<const fft::C2C> fwd, inv; ///< forward out of place, backward in place
+  std::shared_ptr<const fft::PaddedC2C> fwd; ///< forward of the zero-padded field, on all threads
+  std::shared_ptr<const fft::C2C> inv;       ///< backward, in place
 
   /// One workspace with `threads` slots (0 = the current arena's concurrency);
   /// `map` adds the object-focus max-projection buffer to each slot.

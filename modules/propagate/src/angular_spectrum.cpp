@@ -101,7 +101,7 @@ AngularSpectrum::AngularSpectrum(std::size_t h, std::size_t w, const Grid& grid,
   for (std::size_t ky = 1; ky <= (ph_ - 1) / 2; ++ky)
     std::memcpy(static_cast<void*>(transfer_.row(ph_ - ky)), transfer_.row(ky), pw_ * sizeof(cfloat));
 
-  fwd_ = fft::plan_c2c(ph_, pw_, fft::Direction::forward, false);
+  fwd_ = fft::plan_padded_c2c(ph_, pw_, h_, fft::Direction::forward);
   inv_ = fft::plan_c2c(ph_, pw_, fft::Direction::backward, true);
 }
 

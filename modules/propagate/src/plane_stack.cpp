@@ -77,7 +77,7 @@ PlaneStack::PlaneStack(std::size_t h, std::size_t w, const Grid& grid, std::vect
   const TransferKind kind =
       choice_.method == Method::fresnel ? TransferKind::fresnel : TransferKind::angular_spectrum;
   for (std::size_t s = 0; s < S; ++s) tf_[s] = cached_transfer(kind, ph_, pw_, grid, z_[s], options.band_limit);
-  fwd_ = fft::plan_c2c(ph_, pw_, fft::Direction::forward, false);
+  fwd_ = fft::plan_padded_c2c(ph_, pw_, h_, fft::Direction::forward);
   inv_ = fft::plan_c2c(ph_, pw_, fft::Direction::backward, true);
 }
 

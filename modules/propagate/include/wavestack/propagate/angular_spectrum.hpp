@@ -103,7 +103,8 @@ private:
   Grid out_grid_;
   double ulim_x_ = 0, ulim_y_ = 0;
   Image<cfloat> transfer_; ///< H·(1/(ph·pw)), in FFT bin order
-  std::shared_ptr<const fft::C2C> fwd_, inv_;
+  std::shared_ptr<const fft::PaddedC2C> fwd_; ///< forward of the zero-padded field
+  std::shared_ptr<const fft::C2C> inv_;
 };
 
 } // namespace wavestack::propagate

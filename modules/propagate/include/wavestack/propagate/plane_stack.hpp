@@ -109,7 +109,8 @@ private:
   MethodChoice choice_;
   std::vector<std::shared_ptr<const TransferFunction>> tf_;
   std::unique_ptr<FresnelSingleFFT> single_; ///< S == 1 single-FFT only
-  std::shared_ptr<const fft::C2C> fwd_, inv_; ///< forward (out of place) and backward (in place)
+  std::shared_ptr<const fft::PaddedC2C> fwd_; ///< forward of the zero-padded field (out of place)
+  std::shared_ptr<const fft::C2C> inv_;       ///< backward, in place
 };
 
 } // namespace wavestack::propagate

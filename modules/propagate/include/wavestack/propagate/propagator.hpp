@@ -81,7 +81,8 @@ public:
 
 private:
   std::shared_ptr<const TransferFunction> tf_;
-  std::shared_ptr<const fft::C2C> fwd_, inv_;
+  std::shared_ptr<const fft::PaddedC2C> fwd_; ///< forward of the zero-padded field
+  std::shared_ptr<const fft::C2C> inv_;
 };
 
 /// Single-FFT ("direct") Fresnel:
