@@ -170,12 +170,15 @@ void mul_rows(const float* s0, float* o0, const float* s1, float* o1, const floa
 /// quarter row min(ky, ph-ky), column kx quarter column min(kx, pw-kx)).
 /// Only t's support is read from `in`; out is zero elsewhere (H = 0 there).
 /// in may equal out.
-void multiply_plane(const propagate::TransferFunction& t, const cfloat* in, cfloat* out, float k) {
+/// Quarter rows [qa, qb) of 0..ph/2 only (the spectrum rows qy and ph-qy of
+/// each): disjoint ranges may run on different threads.
+void multiply_plane(const propagate::TransferFunction& t, const cfloat* in, cfloat* out, float k,
+                    std::size_t qa = 0, std::size_t qb = std::size_t(-1)) {
   const std::size_t ph = t.padded_height(), pw = t.padded_width(), hy = ph / 2;
   const std::size_t n1 = pw / 2 + 1, n2 = pw - n1;
   auto row = [&](const cfloat* base, std::size_t ky) { return reinterpret_cast<const float*>(base + ky * pw); };
   auto paired = [&](std::size_t qy) { return qy != 0 && ph - qy != qy; }; // rows qy and ph-qy both exist
-  for (std::size_t qy = 0; qy <= hy; ++qy) {
+  for (std::size_t qy = qa; qy <= hy && qy < qb; ++qy) {
     const float* q = reinterpret_cast<const float*>(t.quarter().row(qy));
     const bool pair = paired(qy);
     const float* s0 = row(in, qy);
@@ -246,6 +249,7 @@ Engine::Engine(std::size_t h_, std::size_t w_, const Grid& grid_, double from, d
 EngineWorkspace Engine::make_workspace(const MetricEvaluator& ev, bool map, std::size_t threads) const {
   EngineWorkspace ws;
   ws.padded = Image<cfloat>(ph, pw, cfloat(0.0f, 0.0f));
+  ws.row_sums.assign(3 * h, 0.0);
   ws.spectrum = Image<cfloat>(ph, pw);
   ws.moved = Image<cfloat>(ph, pw);
   if (threads == 0) threads = static_cast<std::size_t>(std::max(1, tbb::this_task_arena::max_concurrency()));
@@ -264,9 +268,11 @@ void Engine::prepare(ImageView<const cfloat> field, EngineWorkspace& ws) const {
     fail_internal("focus search: the field is " + std::to_string(field.height()) + "x" +
                   std::to_string(field.width()) + ", the search was planned for " + std::to_string(h) + "x" +
                   std::to_string(w));
-  std::complex<double> sum(0, 0);
-  double power = 0;
-  for (std::size_t y = 0; y < h; ++y) {
+  // Per-row sums on all threads, added up in row order afterwards: the
+  // same value for any thread count.
+  std::vector<double>& rs = ws.row_sums;
+  rs.resize(3 * h); // allocated by make_workspace; no-op here
+  on_rows(h, [&](std::size_t y) {
     const cfloat* r = field.row(y);
     double sr = 0, si = 0, sp = 0;
     for (std::size_t x = 0; x < w; ++x) {
@@ -274,19 +280,26 @@ void Engine::prepare(ImageView<const cfloat> field, EngineWorkspace& ws) const {
       si += r[x].imag();
       sp += static_cast<double>(r[x].real()) * r[x].real() + static_cast<double>(r[x].imag()) * r[x].imag();
     }
-    sum += std::complex<double>(sr, si);
-    power += sp;
+    rs[3 * y] = sr;
+    rs[3 * y + 1] = si;
+    rs[3 * y + 2] = sp;
+  });
+  std::complex<double> sum(0, 0);
+  double power = 0;
+  for (std::size_t y = 0; y < h; ++y) {
+    sum += std::complex<double>(rs[3 * y], rs[3 * y + 1]);
+    power += rs[3 * y + 2];
   }
   ws.rms = std::sqrt(power / static_cast<double>(h * w));
   sum = background == Background::mean ? sum / static_cast<double>(h * w) : std::complex<double>(0, 0);
   ws.background = cfloat(static_cast<float>(sum.real()), static_cast<float>(sum.imag()));
   // Only the corner is written, and the forward plan preserves its input,
   // so the zero padding written by make_workspace stays.
-  for (std::size_t y = 0; y < h; ++y) {
+  on_rows(h, [&](std::size_t y) {
     const cfloat* r = field.row(y);
     cfloat* o = ws.padded.row(y);
     for (std::size_t x = 0; x < w; ++x) o[x] = r[x] - ws.background;
-  }
+  });
   fwd->execute(ws.padded.data(), ws.spectrum.data());
 }
 
@@ -297,7 +310,11 @@ void Engine::propagate(const propagate::TransferFunction& t, const Image<cfloat>
 
 void Engine::move_spectrum(EngineWorkspace& ws, const propagate::TransferFunction& t, bool from_spectrum) const {
   const float n = static_cast<float>(static_cast<double>(ph) * static_cast<double>(pw));
-  multiply_plane(t, from_spectrum ? ws.spectrum.data() : ws.moved.data(), ws.moved.data(), n);
+  const cfloat* in = from_spectrum ? ws.spectrum.data() : ws.moved.data();
+  // Between the refinement's parallel pairs nothing else runs: all threads
+  // share the pass (each quarter row pair is independent, so the values do
+  // not depend on the split).
+  on_ranges(ph / 2 + 1, 16, [&](std::size_t a, std::size_t b) { multiply_plane(t, in, ws.moved.data(), n, a, b); });
 }
 
 } // namespace wavestack::focus::detail

@@ -44,6 +44,7 @@ struct EngineWorkspace {
   Image<cfloat> spectrum; ///< ph×pw forward spectrum, shared read-only by the plane tasks
   Image<cfloat> moved;    ///< ph×pw: spectrum moved to the refinement centre
   std::vector<Slot> slots;
+  std::vector<double> row_sums; ///< h×3: per-row Σre, Σim, Σ|u|² of the field (prepare)
   cfloat background{0.0f, 0.0f};
   double rms = 0; ///< sqrt(mean |field|²)
 
@@ -56,6 +57,21 @@ struct EngineWorkspace {
     return slots[static_cast<std::size_t>(i)];
   }
 };
+
+/// fn(a, b) over [0, n) in chunks of `grain`, on the current arena's
+/// threads, isolated like Engine::sweep (a waiting thread takes no outer task).
+template <class Fn> void on_ranges(std::size_t n, std::size_t grain, Fn&& fn) {
+  tbb::this_task_arena::isolate([&] {
+    tbb::parallel_for(tbb::blocked_range<std::size_t>(0, n, grain),
+                      [&](const tbb::blocked_range<std::size_t>& r) { fn(r.begin(), r.end()); });
+  });
+}
+/// fn(y) for every row y < n, in chunks of 32 rows.
+template <class Fn> void on_rows(std::size_t n, Fn&& fn) {
+  on_ranges(n, 32, [&](std::size_t a, std::size_t b) {
+    for (std::size_t y = a; y < b; ++y) fn(y);
+  });
+}
 
 /// Result of the refinement.
 struct Refined {
