@@ -8,6 +8,8 @@
 #include <catch2/catch.hpp>
 
 #include <cmath>
+#include <cstdlib>
+#include <string_view>
 #include <random>
 #include <limits>
 #include <vector>
@@ -92,6 +94,18 @@ double reference(Metric m, const Image<cfloat>& u, std::complex<double> b, const
 }
 
 } // namespace
+
+TEST_CASE("the SIMD kernels in use are the ones WAVESTACK_FOCUS_ISA asks for") {
+  // ctest runs this executable three times: as the CPU allows, and capped
+  // to AVX2 and to SSE2 (tests/focus/CMakeLists.txt), so every test here
+  // also covers the kernels of CPUs without AVX-512 or AVX2.
+  const char* cap = std::getenv("WAVESTACK_FOCUS_ISA");
+  const std::string_view k = simd_kernels();
+  INFO("kernels " << k << ", cap " << (cap ? cap : "none"));
+  CHECK((k == "avx512" || k == "avx2" || k == "sse2"));
+  if (cap && std::string_view(cap) == "sse2") CHECK(k == "sse2");
+  if (cap && std::string_view(cap) == "avx2") CHECK(k != "avx512");
+}
 
 TEST_CASE("metric names parse back and auto resolves to the Tamura coefficient of the gradient") {
   for (Metric m : all_metrics()) {

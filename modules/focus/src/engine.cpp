@@ -1,5 +1,7 @@
 #include "engine.hpp"
 
+#include "isa.hpp"
+
 #include "wavestack/core/units.hpp"
 #include "wavestack/propagate/method.hpp"
 
@@ -151,7 +153,7 @@ void mul_rows(const float* s0, float* o0, const float* s1, float* o1, const floa
               bool rev, const Ahead& ahead) {
   std::size_t i = 0;
 #if defined(WAVESTACK_FOCUS_SIMD)
-  static const bool avx512 = __builtin_cpu_supports("avx512f"), avx2 = __builtin_cpu_supports("avx2");
+  const bool avx512 = isa() == Isa::avx512, avx2 = isa() == Isa::avx2;
   if (avx512)
     i = mul_avx512(s0, o0, s1, o1, t, n, k, rev, ahead);
   else if (avx2)
@@ -169,9 +171,8 @@ void mul_rows(const float* s0, float* o0, const float* s1, float* o1, const floa
 /// quarter table of `t` (bins 0..ph/2 × 0..pw/2, mirrored: row ky uses
 /// quarter row min(ky, ph-ky), column kx quarter column min(kx, pw-kx)).
 /// Only t's support is read from `in`; out is zero elsewhere (H = 0 there).
-/// in may equal out.
-/// Quarter rows [qa, qb) of 0..ph/2 only (the spectrum rows qy and ph-qy of
-/// each): disjoint ranges may run on different threads.
+/// in may equal out. Only quarter rows [qa, qb) of 0..ph/2 (the spectrum
+/// rows qy and ph-qy of each): disjoint ranges may run on different threads.
 void multiply_plane(const propagate::TransferFunction& t, const cfloat* in, cfloat* out, float k,
                     std::size_t qa = 0, std::size_t qb = std::size_t(-1)) {
   const std::size_t ph = t.padded_height(), pw = t.padded_width(), hy = ph / 2;

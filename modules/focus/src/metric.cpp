@@ -2,6 +2,8 @@
 
 #include "wavestack/core/error.hpp"
 
+#include "isa.hpp"
+
 #include <algorithm>
 #include <array>
 #include <cmath>
@@ -168,10 +170,7 @@ __attribute__((target("avx2"))) std::size_t masked_sums(const float* q, const fl
 std::size_t aligned_split_sums(bool grad, const float* r0, const float* r1, float br, float bi, std::size_t n,
                                double* out);
 
-bool available() {
-  static const bool ok = __builtin_cpu_supports("avx2");
-  return ok;
-}
+bool available() { return detail::isa() >= detail::Isa::avx2; }
 
 __attribute__((target("avx2"))) inline double total4(__m256d v) {
   double a[4];
@@ -361,10 +360,7 @@ __attribute__((target("avx512f"))) void split_sums(ImageView<const cfloat> u, st
   }
 }
 
-bool available() {
-  static const bool ok = __builtin_cpu_supports("avx512f");
-  return ok;
-}
+bool available() { return detail::isa() == detail::Isa::avx512; }
 
 } // namespace avx512
 #pragma GCC diagnostic pop

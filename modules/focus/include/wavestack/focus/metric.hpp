@@ -114,6 +114,11 @@ std::optional<Metric> parse_metric(std::string_view name) noexcept;
 /// (all but spectral_energy); these can be summed over tiles (objects.hpp).
 bool is_moment_metric(Metric m) noexcept;
 
+/// The SIMD kernels the focus module runs in this process: "avx512", "avx2"
+/// or "sse2" (the widest the CPU has; WAVESTACK_FOCUS_ISA=avx2 or sse2 caps
+/// it, so tests can run the narrower kernels on a wider machine).
+std::string_view simd_kernels() noexcept;
+
 /// Running moments of a pixel quantity q: count, Σq, Σq² (double).
 struct Moments {
   double n = 0, s1 = 0, s2 = 0;
