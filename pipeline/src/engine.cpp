@@ -313,7 +313,11 @@ struct Engine::Impl {
       const std::string partial = io::FrameSink::partial_path(pl.output.path);
       std::error_code ec;
       if (!fs::exists(partial, ec)) return e;
-      return Error(e.kind(), e.message() + "; the partial file " + partial + " is kept for --resume", e.context());
+      // A write that failed (disk full, I/O error) may have left the file
+      // unreadable; --resume then starts over (README, Long batches).
+      const char* caveat = e.kind() == ErrorKind::output ? " (if the failed write damaged it, --resume starts over)" : "";
+      return Error(e.kind(), e.message() + "; the partial file " + partial + " is kept for --resume" + caveat,
+                   e.context());
     };
     OutputFile out = [&] {
       try {
