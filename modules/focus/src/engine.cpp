@@ -315,7 +315,7 @@ void Engine::move_spectrum(EngineWorkspace& ws, const propagate::TransferFunctio
   // Between the refinement's parallel pairs nothing else runs: all threads
   // share the pass (each quarter row pair is independent, so the values do
   // not depend on the split).
-  on_ranges(ph / 2 + 1, 16, [&](std::size_t a, std::size_t b) { multiply_plane(t, in, ws.moved.data(), n, a, b); });
+  on_ranges(0, ph / 2 + 1, 16, [&](std::size_t a, std::size_t b) { multiply_plane(t, in, ws.moved.data(), n, a, b); });
 }
 
 } // namespace wavestack::focus::detail

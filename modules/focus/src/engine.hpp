@@ -58,17 +58,19 @@ struct EngineWorkspace {
   }
 };
 
-/// fn(a, b) over [0, n) in chunks of `grain`, on the current arena's
-/// threads, isolated like Engine::sweep (a waiting thread takes no outer task).
-template <class Fn> void on_ranges(std::size_t n, std::size_t grain, Fn&& fn) {
+/// fn(a, b) over [first, end) in chunks of `grain`, on the current arena's
+/// threads, in tbb::this_task_arena::isolate: a thread waiting for the loop
+/// only picks up its chunks — never an outer task (e.g. another frame of a
+/// pipeline) that could reuse the caller's workspace.
+template <class Fn> void on_ranges(std::size_t first, std::size_t end, std::size_t grain, Fn&& fn) {
   tbb::this_task_arena::isolate([&] {
-    tbb::parallel_for(tbb::blocked_range<std::size_t>(0, n, grain),
+    tbb::parallel_for(tbb::blocked_range<std::size_t>(first, end, grain),
                       [&](const tbb::blocked_range<std::size_t>& r) { fn(r.begin(), r.end()); });
   });
 }
 /// fn(y) for every row y < n, in chunks of 32 rows.
 template <class Fn> void on_rows(std::size_t n, Fn&& fn) {
-  on_ranges(n, 32, [&](std::size_t a, std::size_t b) {
+  on_ranges(0, n, 32, [&](std::size_t a, std::size_t b) {
     for (std::size_t y = a; y < b; ++y) fn(y);
   });
 }
@@ -111,20 +113,16 @@ public:
     return cfloat(static_cast<float>(v.real()), static_cast<float>(v.imag()));
   }
 
-  /// Propagate planes [a, b] in parallel; fn(i, slot, bz) is called with
-  /// slot.out holding the field of plane i and bz its background.
-  /// The loop runs in tbb::this_task_arena::isolate, so a thread waiting
-  /// for it only picks up tasks of this sweep — never an outer task (e.g.
-  /// another frame of a pipeline) that could reuse the caller's workspace.
+  /// Propagate planes [a, b] in parallel (isolated, see on_ranges);
+  /// fn(i, slot, bz) is called with slot.out holding the field of plane i
+  /// and bz its background.
   template <class Fn> void sweep(std::size_t a, std::size_t b, EngineWorkspace& ws, Fn&& fn) const {
-    tbb::this_task_arena::isolate([&] {
-      tbb::parallel_for(tbb::blocked_range<std::size_t>(a, b + 1, 1), [&](const tbb::blocked_range<std::size_t>& r) {
-        Slot& s = ws.slot();
-        for (std::size_t i = r.begin(); i != r.end(); ++i) {
-          propagate(*planes[i], ws.spectrum, s);
-          fn(i, s, background_at(ws, distances[i]));
-        }
-      });
+    on_ranges(a, b + 1, 1, [&](std::size_t first, std::size_t end) {
+      Slot& s = ws.slot();
+      for (std::size_t i = first; i != end; ++i) {
+        propagate(*planes[i], ws.spectrum, s);
+        fn(i, s, background_at(ws, distances[i]));
+      }
     });
   }
 
